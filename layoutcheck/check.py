@@ -1,0 +1,249 @@
+"""Learning templates and checking pages: the stages wired together for one file at a time.
+
+``learn`` reads references and builds a :class:`~layoutcheck.template.Template`;
+``check_page`` turns one page into one JSON-ready record; ``check_file`` does every page of a
+file, in order, and yields exactly one record per page (or one error record for a file that
+cannot be opened at all).
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+from typing import Iterable, Iterator, Sequence
+
+import numpy as np
+
+from .consensus import Match, SolverSettings, solve
+from .elements import MM_PER_POINT, PageElements
+from .sources import PageError, RasterPage, ReadLimits, VectorPage, read_pages, render_pdf_page, where
+from .template import Template, TemplatePage, template_page, with_raster_sections
+from .verdict import Finding, Tolerances, judge, offending
+
+#: Resolution at which a born-digital reference is rendered to learn how scans of it look
+#: (200 dpi: common practice for office scans; the raster extractor works in mm, so scans at
+#: other resolutions compare alike).
+REFERENCE_RENDER_DPI = 200.0
+
+
+class LearnError(Exception):
+    """A reference that cannot be learned from; one line naming the file and page."""
+
+
+def extract(page: VectorPage | RasterPage) -> PageElements:
+    """Elements of one page, by the extractor for its kind."""
+    if isinstance(page, VectorPage):
+        from .extract.vector import extract_vector
+
+        return extract_vector(page)
+    from .extract.raster import extract_raster
+
+    return extract_raster(page)
+
+
+def parse_pages(spec: str | None) -> set[int] | None:
+    """``"1,3-5"`` -> {1, 3, 4, 5}; None for all pages."""
+    if not spec:
+        return None
+    out: set[int] = set()
+    for part in spec.split(","):
+        part = part.strip()
+        if not part:
+            continue
+        if "-" in part:
+            a, b = part.split("-", 1)
+            lo, hi = int(a), int(b)
+            if lo < 1 or hi < lo:
+                raise ValueError(f"bad page range {part!r}")
+            out.update(range(lo, hi + 1))
+        else:
+            v = int(part)
+            if v < 1:
+                raise ValueError(f"bad page number {part!r}")
+            out.add(v)
+    return out
+
+
+def learn(references: Sequence[str], name: str | None = None, pages: set[int] | None = None,
+          limits: ReadLimits = ReadLimits(), section_names: dict[str, str] | None = None,
+          with_raster: bool = True) -> Template:
+    """Learn a template from one reference (a blank PDF or a clean scan; every page of it).
+
+    Several references are taken as good samples of the same form: see
+    :func:`layoutcheck.samples.learn_from_samples`.
+    """
+    refs = [str(r) for r in references]
+    if not refs:
+        raise LearnError("no reference given")
+    if len(refs) > 1:
+        from .samples import learn_from_samples
+
+        return learn_from_samples(refs, name=name, pages=pages, limits=limits, section_names=section_names)
+    ref = refs[0]
+    out_pages: list[TemplatePage] = []
+    for page in read_pages(ref, limits, pages):
+        if isinstance(page, PageError):
+            raise LearnError(page.message)
+        number = len(out_pages) + 1
+        if isinstance(page, VectorPage):
+            vec = extract(page)
+            ras = None
+            if with_raster:
+                rendered = render_pdf_page(ref, page.page, limits, REFERENCE_RENDER_DPI)
+                if isinstance(rendered, PageError):
+                    raise LearnError(rendered.message)
+                ras = extract(rendered)
+            tp = template_page(number, vec, ras, section_names)
+        else:
+            tp = template_page(number, None, extract(page), section_names)
+        if len(tp.elements) < 3:
+            raise LearnError(f"{where(ref, page.page)}: only {len(tp.elements)} form elements found; "
+                             "a template needs ruled lines, boxes or labels (blank or photographic page?)")
+        out_pages.append(with_raster_sections(tp))
+    if not out_pages:
+        raise LearnError(f"{where(ref, None)}: no pages selected")
+    stem = name or _default_name(ref)
+    return Template(stem, tuple(out_pages), (ref.split("/")[-1],))
+
+
+def _default_name(path: str) -> str:
+    base = path.replace("\\", "/").split("/")[-1]
+    stem = base.rsplit(".", 1)[0]
+    return stem.split("_")[0] if "_" in stem else stem
+
+
+# -- checking -------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class CheckSettings:
+    tolerances: Tolerances = Tolerances()
+    solver: SolverSettings = SolverSettings()
+
+
+def judged_mask(tp_elements, input_elements: PageElements) -> np.ndarray:
+    """Which template elements count for this input.
+
+    Printed text in a scan is used for the pose but not judged: without OCR, a label cannot be
+    told from handwriting written beside it. Form fields are judged only when the input has any
+    (a printed or flattened copy has none).
+    """
+    raster = input_elements.source == "raster"
+    has_fields = any(e.kind == "field" for e in input_elements.elements)
+    out = []
+    for e in tp_elements:
+        if e.kind_class == "text" and raster:
+            out.append(False)
+        elif e.kind == "field" and not has_fields:
+            out.append(False)
+        else:
+            out.append(True)
+    return np.array(out, bool)
+
+
+def match_page(tp: TemplatePage, found: PageElements, settings: CheckSettings) -> Match:
+    """Match found elements to one template page."""
+    els = tp.elements_for(found.source)
+    judged = judged_mask(els, found)
+    unstable = set(tp.unstable)
+    if unstable:
+        judged &= np.array([e.id not in unstable for e in els], bool)
+    return solve(els, found.elements, tp.sections, judged=judged, settings=settings.solver,
+                 position_tol=settings.tolerances.element_tolerance_mm / MM_PER_POINT,
+                 size_tol=settings.tolerances.element_size_pct / 100.0, slack=tp.slack)
+
+
+def best_match(templates: Sequence[Template], found: PageElements, settings: CheckSettings):
+    """The template page whose elements agree best: ``(template, page, match)``."""
+    from .identify import candidates
+
+    best = None
+    for template, tp in candidates(templates, found):
+        m = match_page(tp, found, settings)
+        key = (m.pose is not None, m.support)
+        if best is None or key > best[0]:
+            best = (key, template, tp, m)
+    if best is None:
+        return None, None, None
+    return best[1], best[2], best[3]
+
+
+def error_record(source: str, page: int | None, message: str, elapsed_ms: float = 0.0) -> dict:
+    return {
+        "source": source, "page": page, "template": None, "template_page": None, "verdict": "error",
+        "findings": [Finding("error", message).to_dict()], "pose": None, "support": 0.0,
+        "offending": [], "sections": [], "elapsed_ms": round(elapsed_ms, 2), "error": message,
+    }
+
+
+def pose_record(match: Match, tp: TemplatePage, input_size: tuple[float, float]) -> dict | None:
+    if match.pose is None:
+        return None
+    p = match.pose
+    return {
+        "rotation_deg": round(p.rotation_deg, 4),
+        "scale": round(p.scale, 6),
+        "scale_x": round(p.scale_x, 6),
+        "scale_y": round(p.scale_y, 6),
+        "shift_mm": [round(float(v), 3) for v in p.shift_mm((tp.width, tp.height), input_size)],
+        "matrix": [[round(v, 6) for v in row] for row in p.as_2x3()],
+    }
+
+
+def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Template],
+               settings: CheckSettings = CheckSettings()) -> dict:
+    """One JSON-ready record for one page (see the README for the fields)."""
+    t0 = time.perf_counter()
+    if isinstance(page, PageError):
+        return error_record(page.source, page.page, page.message)
+    try:
+        found = extract(page)
+    except Exception as exc:  # an extractor bug on one page must not end the batch
+        msg = f"{where(page.source, page.page)}: elements could not be read ({type(exc).__name__}: {exc})"
+        return error_record(page.source, page.page, msg, (time.perf_counter() - t0) * 1000)
+    return record_for(page.source, page.page, found, templates, settings, t0)
+
+
+def record_for(source: str, page_no: int, found: PageElements, templates: Sequence[Template],
+               settings: CheckSettings, t0: float | None = None) -> dict:
+    t0 = time.perf_counter() if t0 is None else t0
+    template, tp, match = best_match(templates, found, settings)
+    input_size = (found.width, found.height)
+    if match is None:
+        msg = "no template page to compare with"
+        rec = error_record(source, page_no, f"{where(source, page_no)}: {msg}")
+        return rec
+    verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size)
+    recognised = verdict != "unrecognised"
+    rec = {
+        "source": source,
+        "page": page_no,
+        "template": template.name if recognised else None,
+        "template_page": tp.number if recognised else None,
+        "verdict": verdict,
+        "findings": [f.to_dict() for f in findings],
+        "pose": pose_record(match, tp, input_size) if recognised else None,
+        "support": round(match.support, 4),
+        "offending": offending(match) if recognised else [],
+        "sections": [
+            {"id": s.id, "name": s.name, "status": s.status, "offset_mm": [round(v, 2) for v in s.offset_mm],
+             "support": round(s.support, 4), "elements": s.elements}
+            for s in match.sections
+        ] if recognised else [],
+        "elapsed_ms": round((time.perf_counter() - t0) * 1000, 2),
+        "error": None,
+    }
+    if not recognised:
+        rec["findings"][0]["message"] += f" (closest: {template.name} page {tp.number})"
+    return rec
+
+
+def check_file(path: str, templates: Sequence[Template], settings: CheckSettings = CheckSettings(),
+               limits: ReadLimits = ReadLimits(), pages: set[int] | None = None) -> Iterator[dict]:
+    """Records for every page of one file, in page order; never raises for bad input."""
+    for page in read_pages(path, limits, pages):
+        yield check_page(page, templates, settings)
+
+
+def check_files(paths: Iterable[str], templates: Sequence[Template], settings: CheckSettings = CheckSettings(),
+                limits: ReadLimits = ReadLimits()) -> Iterator[dict]:
+    for p in paths:
+        yield from check_file(p, templates, settings, limits)

@@ -1,0 +1,646 @@
+"""Frame-voting consensus: find the pose of a page and the elements that disagree with it.
+
+Every candidate correspondence between a template element and an input element predicts the pose
+of the whole page by itself, because an element's frame has a position, a size and an
+orientation. The predictions vote (pose clustering / Hough voting, after Ballard 1981 and Stockman
+1987), in stages that keep each histogram small:
+
+1. rotation, from the change of orientation of every pair whose two sides have one;
+2. log-scale per template axis, from the change of size, for pairs that agree with the rotation;
+3. shift, with rotation and scale fixed, on a 2-D grid (four half-shifted grids, so a cluster is
+   never split by a bin edge).
+
+A vote is counted once per *template element* per bin, so a row of fifty identical checkboxes
+cannot outvote the rest of the form. The winning cluster is refined by weighted least squares
+(the similarity of Umeyama 1991; affine where x and y scales differ, as "fit to page" printing
+and some feeders do) on a one-to-one assignment (``scipy.optimize.linear_sum_assignment``,
+solved per connected block of the gated pair graph).
+
+Parts vote for sections, and sections for the page: with the page pose fixed, the elements of
+each section vote for the section's own residual shift. A section whose elements agree with each
+other on a shift beyond tolerance is *moved as one*: it is reported once, as that section, and
+the page pose is refitted on the sections that agree with the page.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.optimize import linear_sum_assignment
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
+
+from .elements import KIND_CLASS, MM_PER_POINT, Element
+from .pose import Pose
+
+CLASS_CODE = {c: i for i, c in enumerate(sorted(set(KIND_CLASS.values())))}
+LINE = CLASS_CODE["line"]
+TEXT = CLASS_CODE["text"]
+FIELD = CLASS_CODE["field"]
+
+
+@dataclass(frozen=True)
+class SolverSettings:
+    """Knobs of the consensus solver; lengths in points."""
+
+    #: Scales considered at all (a page printed at half or double size is still recognised).
+    scale_range: tuple[float, float] = (0.5, 2.0)
+    rotation_bin_deg: float = 1.0
+    log_scale_bin: float = 0.02
+    #: Shift grid cell, 3 mm: about the spread of single-element predictions.
+    shift_bin: float = 8.5
+    #: Most rotation hypotheses followed through (the 180-degree twin of a rotation is one).
+    max_hypotheses: int = 4
+    #: Pairs farther than this from their predicted place are not assigned while refining (6 mm).
+    refine_gate: float = 17.0
+    #: Pairs this close after refinement agree with the pose (1 mm).
+    agree: float = 2.835
+    #: Largest displacement still reported as "moved" rather than "missing" (25 mm).
+    status_gate: float = 70.9
+    #: x/y scale difference from which the affine refinement is kept (0.15 %).
+    anisotropy: float = 0.0015
+    #: Weight of each kind in the least-squares refinement: boxes and marks are located to a
+    #: fraction of a pixel from four fitted rules; a rule's centre only across it; text roughly.
+    weights: dict = field(default_factory=lambda: {
+        "box": 1.0, "checkbox": 1.0, "mark": 1.0, "field": 1.0,
+        "hline": 0.3, "vline": 0.3, "line": 0.3, "label": 0.3, "textblock": 0.2,
+    })
+    #: Residual section shift that makes a section "moved as one" needs this many elements.
+    section_min_elements: int = 3
+
+
+@dataclass(frozen=True)
+class ElementResult:
+    """How one template element was found on the input."""
+
+    id: str
+    kind: str
+    caption: str | None
+    frame: tuple[float, float, float, float]
+    section: str | None
+    status: str  # ok, moved, resized, missing
+    input_index: int | None
+    #: Displacement from where the page pose puts it, in the template's axes, millimetres.
+    offset_mm: tuple[float, float] | None
+    #: Found size over expected size (the larger deviation of width and height).
+    size_ratio: float | None
+    #: Whether this element is judged (counted in support and findings).
+    judged: bool = True
+    #: Part of a section that moved as one (the section is reported, not the element).
+    in_moved_section: bool = False
+
+
+@dataclass(frozen=True)
+class SectionResult:
+    id: str
+    name: str
+    frame: tuple[float, float, float, float]
+    status: str  # ok, moved, partial
+    offset_mm: tuple[float, float]
+    support: float
+    elements: int
+
+
+@dataclass(frozen=True)
+class Match:
+    """Result of matching one input page to one template page."""
+
+    pose: Pose | None
+    support: float
+    elements: tuple[ElementResult, ...]
+    sections: tuple[SectionResult, ...]
+    hypotheses: int = 0
+    pairs: int = 0
+    reason: str = ""
+
+    @property
+    def recognised(self) -> bool:
+        return self.pose is not None
+
+
+# -- arrays ---------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class FrameArrays:
+    """Elements as arrays: centres, sizes, angles (degrees, NaN unknown), class codes, texts."""
+
+    centers: np.ndarray
+    sizes: np.ndarray
+    angles: np.ndarray
+    classes: np.ndarray
+    texts: tuple
+
+    @classmethod
+    def of(cls, elements) -> "FrameArrays":
+        n = len(elements)
+        f = np.array([e.frame for e in elements], dtype=float).reshape(n, 4)
+        return cls(
+            centers=np.column_stack([(f[:, 0] + f[:, 2]) / 2, (f[:, 1] + f[:, 3]) / 2]).reshape(n, 2),
+            sizes=np.maximum(np.column_stack([f[:, 2] - f[:, 0], f[:, 3] - f[:, 1]]).reshape(n, 2), 0.05),
+            angles=np.array([np.nan if e.angle is None else e.angle for e in elements], dtype=float),
+            classes=np.array([CLASS_CODE[e.kind_class] for e in elements], dtype=int),
+            texts=tuple(_norm_text(e.text) if e.kind_class == "text" else None for e in elements),
+        )
+
+
+def _norm_text(t: str | None) -> str | None:
+    if not t:
+        return None
+    return re.sub(r"\s+", " ", t).strip().lower() or None
+
+
+def candidate_pairs(tmpl: FrameArrays, inp: FrameArrays, settings: SolverSettings = SolverSettings()) -> tuple[np.ndarray, np.ndarray]:
+    """Template/input index pairs that could be the same element.
+
+    Gated by kind class, by size (the longer side for rules, the area otherwise, within the
+    scale range, allowing for a turn by 90 degrees) and, where both sides have text, by text.
+    """
+    lo, hi = settings.scale_range
+    ti_all, ii_all = [], []
+    for code in np.unique(tmpl.classes):
+        ti = np.flatnonzero(tmpl.classes == code)
+        ii = np.flatnonzero(inp.classes == code)
+        if len(ti) == 0 or len(ii) == 0:
+            continue
+        ts, isz = tmpl.sizes[ti], inp.sizes[ii]
+        if code == LINE:
+            r = isz.max(1)[None, :] / ts.max(1)[:, None]
+        else:
+            r = np.sqrt((isz[:, 0] * isz[:, 1])[None, :] / (ts[:, 0] * ts[:, 1])[:, None])
+        ok = (r >= lo) & (r <= hi)
+        if code == TEXT:
+            tt = [tmpl.texts[k] for k in ti]
+            it = [inp.texts[k] for k in ii]
+            if any(tt) and any(it):
+                same = np.array([[(a is None or b is None or a == b) for b in it] for a in tt], dtype=bool)
+                ok &= same
+        a, b = np.nonzero(ok)
+        ti_all.append(ti[a])
+        ii_all.append(ii[b])
+    if not ti_all:
+        return np.zeros(0, int), np.zeros(0, int)
+    return np.concatenate(ti_all), np.concatenate(ii_all)
+
+
+# -- voting ---------------------------------------------------------------------------------------
+def _distinct_counts(keys: np.ndarray, owners: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per distinct key, how many distinct owners voted for it."""
+    if len(keys) == 0:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64)
+    both = np.unique(np.stack([keys, owners.astype(np.int64)], axis=1), axis=0)
+    uk, counts = np.unique(both[:, 0], return_counts=True)
+    return uk, counts
+
+
+def _quadrant_sizes(ts: np.ndarray, k: np.ndarray) -> np.ndarray:
+    """Template sizes as they would lie on the input after a turn by ``k`` quarter turns."""
+    odd = (k % 2) == 1
+    out = ts.copy()
+    out[odd] = ts[odd][:, ::-1]
+    return out
+
+
+def rotation_votes(tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarray):
+    """Rotation predicted by every pair with orientations on both sides, all quarter turns.
+
+    Returns ``(pair_index, rotation_deg)``: the internal rotation (y-down, positive clockwise as
+    seen) each pair supports, one row per quarter turn that its aspect ratio allows.
+    """
+    ta, ia = tmpl.angles[ti], inp.angles[ii]
+    have = np.isfinite(ta) & np.isfinite(ia)
+    idx = np.flatnonzero(have)
+    if len(idx) == 0:
+        return np.zeros(0, int), np.zeros(0)
+    base = ia[idx] - ta[idx]
+    t_aspect = np.log(tmpl.sizes[ti[idx], 0] / tmpl.sizes[ti[idx], 1])
+    i_aspect = np.log(inp.sizes[ii[idx], 0] / inp.sizes[ii[idx], 1])
+    rows_p, rows_r = [], []
+    for k in range(4):
+        expect = t_aspect if k % 2 == 0 else -t_aspect
+        ok = np.abs(i_aspect - expect) <= np.maximum(0.35, 0.25 * np.abs(expect))
+        rows_p.append(idx[ok])
+        rows_r.append(base[ok] + 90.0 * k)
+    p = np.concatenate(rows_p)
+    r = (np.concatenate(rows_r) + 180.0) % 360.0 - 180.0
+    return p, r
+
+
+def _peaks_1d(values: np.ndarray, owners: np.ndarray, bin_width: float, lo: float, hi: float, circular: bool):
+    """Bins of a 1-D vote (counted once per owner), soft over two neighbouring bins."""
+    nb = int(math.ceil((hi - lo) / bin_width))
+    pos = (values - lo) / bin_width
+    b0 = np.floor(pos).astype(np.int64)
+    b1 = np.where(pos - b0 >= 0.5, b0 + 1, b0 - 1)
+    keys = np.concatenate([b0, b1])
+    own = np.concatenate([owners, owners])
+    if circular:
+        keys %= nb
+    else:
+        keep = (keys >= 0) & (keys < nb)
+        keys, own = keys[keep], own[keep]
+    uk, counts = _distinct_counts(keys, own)
+    hist = np.zeros(nb)
+    hist[uk] = counts
+    return hist
+
+
+def _circ_diff(a: np.ndarray, b: float) -> np.ndarray:
+    return (a - b + 180.0) % 360.0 - 180.0
+
+
+@dataclass(frozen=True)
+class Hypothesis:
+    pose: Pose
+    votes: int
+
+
+def vote_pose(tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarray,
+              settings: SolverSettings = SolverSettings()) -> list[Hypothesis]:
+    """Pose hypotheses from frame votes, best first.
+
+    Parameters
+    ----------
+    tmpl, inp : FrameArrays
+        Template and input elements.
+    ti, ii : (P,) int arrays
+        Candidate correspondences (template index, input index).
+
+    Returns
+    -------
+    list of Hypothesis
+        Each with a pose (template points -> input points) and the number of distinct template
+        elements whose single-element prediction fell in the winning shift cell.
+    """
+    if len(ti) == 0:
+        return []
+    pidx, prot = rotation_votes(tmpl, inp, ti, ii)
+    if len(pidx):
+        hist = _peaks_1d(prot, ti[pidx], settings.rotation_bin_deg, -180.0, 180.0, circular=True)
+        smooth = hist + 0.5 * (np.roll(hist, 1) + np.roll(hist, -1))
+        order = np.argsort(-smooth)
+        rotations = []
+        for b in order:
+            if smooth[b] < 0.3 * smooth[order[0]] or len(rotations) >= settings.max_hypotheses:
+                break
+            centre = -180.0 + (b + 0.5) * settings.rotation_bin_deg
+            if any(abs(_circ_diff(np.array([centre]), r)[0]) < 10.0 for r in rotations):
+                continue
+            near = np.abs(_circ_diff(prot, centre)) <= 1.0 * settings.rotation_bin_deg
+            rotations.append(float(centre + np.median(_circ_diff(prot[near], centre))))
+    else:
+        rotations = [0.0, 90.0, 180.0, -90.0]
+
+    hyps = []
+    for rot in rotations:
+        h = _hypothesis_for_rotation(tmpl, inp, ti, ii, pidx, prot, rot, settings)
+        if h is not None:
+            hyps.append(h)
+    hyps.sort(key=lambda h: -h.votes)
+    return hyps
+
+
+def _hypothesis_for_rotation(tmpl, inp, ti, ii, pidx, prot, rot, settings) -> Hypothesis | None:
+    k = int(np.round(rot / 90.0)) % 4
+    # Pairs that agree with this rotation: those with orientations, within 2 bins; the others
+    # (text blobs of scans) are taken on trust and sorted out by the shift vote.
+    agree = np.ones(len(ti), bool)
+    has_angle = np.zeros(len(ti), bool)
+    has_angle[pidx] = True
+    agree[has_angle] = False
+    ok_rot = np.abs(_circ_diff(prot, rot)) <= 2.0 * settings.rotation_bin_deg
+    agree[pidx[ok_rot]] = True
+    sel = np.flatnonzero(agree)
+    if len(sel) == 0:
+        return None
+    t_i, i_i = ti[sel], ii[sel]
+    ts = _quadrant_sizes(tmpl.sizes[t_i], np.full(len(sel), k))
+    isz = inp.sizes[i_i]
+    is_line = tmpl.classes[t_i] == LINE
+    # Scale along each template axis; a rule tells only its length.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lr = np.log(isz / ts)
+    long_axis = np.argmax(ts, axis=1)
+    ls = np.where(is_line, lr[np.arange(len(sel)), long_axis], lr.mean(axis=1))
+    lo, hi = np.log(settings.scale_range[0]), np.log(settings.scale_range[1])
+    fin = np.isfinite(ls) & (ls >= lo) & (ls <= hi)
+    if not fin.any():
+        return None
+    hist = _peaks_1d(ls[fin], t_i[fin], settings.log_scale_bin, lo, hi, circular=False)
+    smooth = hist + 0.5 * (np.roll(hist, 1) + np.roll(hist, -1))
+    b = int(np.argmax(smooth))
+    centre = lo + (b + 0.5) * settings.log_scale_bin
+    near = fin & (np.abs(ls - centre) <= 1.5 * settings.log_scale_bin)
+    log_s = float(np.median(ls[near]))
+    # Per-axis scales from boxes in the peak (template axes; after an odd turn they swap).
+    boxy = near & ~is_line & (tmpl.classes[t_i] != TEXT)
+    if boxy.sum() >= 3:
+        lx, ly = np.median(lr[boxy, 0]), np.median(lr[boxy, 1])
+        sx, sy = (math.exp(ly), math.exp(lx)) if k % 2 else (math.exp(lx), math.exp(ly))
+        if abs(math.log(sx / sy)) > 0.05:
+            sx = sy = math.exp(log_s)
+    else:
+        sx = sy = math.exp(log_s)
+    a = math.radians(rot)
+    c, s = math.cos(a), math.sin(a)
+    lin = np.array([[c, -s], [s, c]]) @ np.diag([sx, sy])
+    keep = np.abs(ls - log_s) <= 0.15
+    keep &= np.isfinite(ls)
+    t_i, i_i = t_i[keep], i_i[keep]
+    if len(t_i) == 0:
+        return None
+    shifts = inp.centers[i_i] - tmpl.centers[t_i] @ lin.T
+    bw = settings.shift_bin
+    best = (-1, None)
+    for off in ((0.0, 0.0), (0.5, 0.0), (0.0, 0.5), (0.5, 0.5)):
+        q = np.floor(shifts / bw + np.array(off)).astype(np.int64)
+        keys = (q[:, 0] + (1 << 20)) * (1 << 21) + (q[:, 1] + (1 << 20))
+        uk, counts = _distinct_counts(keys, t_i)
+        j = int(np.argmax(counts))
+        if counts[j] > best[0]:
+            best = (int(counts[j]), (keys == uk[j]))
+    votes, in_bin = best
+    t0 = np.median(shifts[in_bin], axis=0)
+    m = np.eye(3)
+    m[:2, :2] = lin
+    m[:2, 2] = t0
+    return Hypothesis(Pose(m), votes)
+
+
+# -- assignment and refinement --------------------------------------------------------------------
+def assign(pred: np.ndarray, inp_centers: np.ndarray, ti: np.ndarray, ii: np.ndarray, gate: float,
+           cost_extra: np.ndarray | None = None) -> np.ndarray:
+    """One-to-one assignment of template elements to input elements near their predicted places.
+
+    ``pred`` are the predicted centres of all template elements; only candidate pairs within
+    ``gate`` points are considered. Solved exactly with ``linear_sum_assignment`` per connected
+    block of the gated pair graph. Returns, per template element, the input index or -1.
+    """
+    n_t = len(pred)
+    out = np.full(n_t, -1, dtype=int)
+    if len(ti) == 0:
+        return out
+    d = np.hypot(*(pred[ti] - inp_centers[ii]).T)
+    cost = d if cost_extra is None else d + cost_extra
+    ok = d <= gate
+    ti, ii, cost = ti[ok], ii[ok], cost[ok]
+    if len(ti) == 0:
+        return out
+    n_i = int(inp_centers.shape[0])
+    g = coo_matrix((np.ones(len(ti)), (ti, n_t + ii)), shape=(n_t + n_i, n_t + n_i))
+    ncomp, labels = connected_components(g, directed=False)
+    comp = labels[ti]
+    order = np.argsort(comp, kind="stable")
+    ti, ii, cost, comp = ti[order], ii[order], cost[order], comp[order]
+    starts = np.flatnonzero(np.r_[True, comp[1:] != comp[:-1]])
+    ends = np.r_[starts[1:], len(comp)]
+    for s, e in zip(starts, ends):
+        if e - s == 1:
+            out[ti[s]] = ii[s]
+            continue
+        rt, rinv = np.unique(ti[s:e], return_inverse=True)
+        ct, cinv = np.unique(ii[s:e], return_inverse=True)
+        big = gate * 10.0 + 1.0
+        mat = np.full((len(rt), len(ct)), big)
+        np.minimum.at(mat, (rinv, cinv), cost[s:e])
+        r, c = linear_sum_assignment(mat)
+        good = mat[r, c] < big
+        out[rt[r[good]]] = ct[c[good]]
+    return out
+
+
+def fit_pose(src: np.ndarray, dst: np.ndarray, w: np.ndarray, settings: SolverSettings) -> Pose | None:
+    """Weighted similarity, or affine when the x and y scales measurably differ."""
+    sim = Pose.from_pairs(src, dst, "similarity", w)
+    if not sim:
+        return None
+    if len(src) < 6:
+        return sim
+    aff = Pose.from_pairs(src, dst, "affine", w)
+    if not aff:
+        return sim
+    if abs(aff.scale_x / aff.scale_y - 1.0) > settings.anisotropy or abs(aff.shear_deg) > 0.1:
+        return aff
+    return sim
+
+
+def refine(pose: Pose, tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarray,
+           weights: np.ndarray, settings: SolverSettings, usable: np.ndarray | None = None, rounds: int = 4):
+    """Alternate assignment and least squares; returns ``(pose, assignment, agreeing mask)``."""
+    gate = settings.refine_gate
+    assignment = np.full(len(tmpl.centers), -1)
+    agree = np.zeros(len(tmpl.centers), bool)
+    for r in range(rounds):
+        pred = pose.apply(tmpl.centers)
+        assignment = assign(pred, inp.centers, ti, ii, gate)
+        got = assignment >= 0
+        if usable is not None:
+            got &= usable
+        if got.sum() < 2:
+            return pose, assignment, agree
+        res = np.hypot(*(pred[got] - inp.centers[assignment[got]]).T)
+        # Agreeing set: within the gate now, the tolerance at the end (shrinking schedule).
+        lim = max(gate * (0.5 ** r), settings.agree * 2.0)
+        use = np.flatnonzero(got)[res <= lim]
+        if len(use) < 2:
+            return pose, assignment, agree
+        new = fit_pose(tmpl.centers[use], inp.centers[assignment[use]], weights[use], settings)
+        if new is None:
+            return pose, assignment, agree
+        pose = new
+        gate = max(settings.agree * 3.0, gate * 0.6)
+    pred = pose.apply(tmpl.centers)
+    assignment = assign(pred, inp.centers, ti, ii, settings.refine_gate)
+    got = assignment >= 0
+    agree = np.zeros(len(pred), bool)
+    agree[got] = np.hypot(*(pred[got] - inp.centers[assignment[got]]).T) <= settings.agree
+    return pose, assignment, agree
+
+
+def solve_correspondences(model_frames: FrameArrays, input_frames: FrameArrays, ti: np.ndarray, ii: np.ndarray,
+                          settings: SolverSettings = SolverSettings(), weights: np.ndarray | None = None):
+    """Pose from candidate correspondences alone: vote, then refine on the agreeing set.
+
+    Returns ``(pose or None, inlier_mask over the pairs)``, the shape of a robust estimator's
+    answer, so it can be compared with RANSAC on the same correspondences.
+    """
+    if weights is None:
+        weights = np.ones(len(model_frames.centers))
+    hyps = vote_pose(model_frames, input_frames, ti, ii, settings)
+    best = None
+    for h in hyps:
+        pose, assignment, agree = refine(h.pose, model_frames, input_frames, ti, ii, weights, settings)
+        score = int(agree.sum())
+        if best is None or score > best[0]:
+            best = (score, pose, assignment, agree)
+    if best is None:
+        return None, np.zeros(len(ti), bool)
+    _, pose, assignment, agree = best
+    inl = (assignment[ti] == ii) & agree[ti]
+    return pose, inl
+
+
+# -- the page -------------------------------------------------------------------------------------
+def _size_ratio(tmpl: FrameArrays, inp: FrameArrays, t: int, i: int, pose: Pose) -> float:
+    """Found size over expected size; the component farther from 1 (rules: length only)."""
+    rot = -pose.rotation_deg  # internal, y-down
+    k = int(np.round(rot / 90.0)) % 4
+    ts = tmpl.sizes[t] * np.array([pose.scale_x, pose.scale_y])
+    if k % 2:
+        ts = ts[::-1]
+    r = inp.sizes[i] / ts
+    if tmpl.classes[t] == LINE:
+        return float(r[int(np.argmax(ts))])
+    return float(r[int(np.argmax(np.abs(np.log(r))))])
+
+
+def solve(template_elements, input_elements, sections=(), *, judged=None,
+          settings: SolverSettings = SolverSettings(), position_tol: float = 5.67, size_tol: float = 0.10,
+          slack: dict | None = None) -> Match:
+    """Match one input page to one template page.
+
+    Parameters
+    ----------
+    template_elements, input_elements : sequence of Element
+    sections : sequence of Section
+        The template page's sections (element ids per section).
+    judged : (N,) bool array, optional
+        Template elements whose disagreement counts (default all).
+    position_tol : float
+        Points an element may sit from its place and still be ``ok`` (default 2 mm).
+    size_tol : float
+        Relative size change still ``ok`` (default 10 %).
+    slack : dict, optional
+        Extra position tolerance per element id, in points (learned from good samples).
+
+    Returns
+    -------
+    Match
+    """
+    # A label is named by its own text where it has no caption.
+    tmpl_els = [e if e.caption or e.kind_class != "text" else e.replace(caption=e.text) for e in template_elements]
+    inp_els = list(input_elements)
+    slack = slack or {}
+    n = len(tmpl_els)
+    judged = np.ones(n, bool) if judged is None else np.asarray(judged, bool)
+    if n == 0:
+        return Match(None, 0.0, (), (), reason="the template page has no elements")
+    if not inp_els:
+        return Match(None, 0.0, _all_missing(tmpl_els, sections, judged), (), reason="no elements found on the page")
+    tmpl, inp = FrameArrays.of(tmpl_els), FrameArrays.of(inp_els)
+    ti, ii = candidate_pairs(tmpl, inp, settings)
+    weights = np.array([settings.weights.get(e.kind, 0.3) for e in tmpl_els])
+    hyps = vote_pose(tmpl, inp, ti, ii, settings)
+    best = None
+    for h in hyps:
+        pose, assignment, agree = refine(h.pose, tmpl, inp, ti, ii, weights, settings)
+        score = float(agree[judged].sum()) + 0.01 * float(agree.sum())
+        if best is None or score > best[0]:
+            best = (score, pose, assignment, agree)
+    if best is None:
+        return Match(None, 0.0, _all_missing(tmpl_els, sections, judged), (), len(hyps), len(ti),
+                     reason="no element of the template has a counterpart on the page")
+    _, pose, assignment, agree = best
+
+    sec_of = np.full(n, -1)
+    index = {e.id: k for k, e in enumerate(tmpl_els)}
+    for s_i, s in enumerate(sections):
+        for eid in s.element_ids:
+            if eid in index:
+                sec_of[index[eid]] = s_i
+
+    # Sections vote for their own residual shift under the page pose.
+    inv = pose.inverse()
+    sec_shift = np.zeros((len(sections), 2))
+    sec_moved = np.zeros(len(sections), bool)
+    sec_support = np.zeros(len(sections))
+    if len(ti):
+        resid = inv.apply(inp.centers[ii]) - tmpl.centers[ti]
+        for s_i, s in enumerate(sections):
+            members = np.flatnonzero((sec_of == s_i) & judged)
+            if len(members) < settings.section_min_elements:
+                continue
+            sel = np.isin(ti, members)
+            if not sel.any():
+                continue
+            off, count, zero_count = _section_vote(resid[sel], ti[sel], settings)
+            sec_support[s_i] = count / len(members)
+            if (np.hypot(*off) > position_tol and count >= max(settings.section_min_elements, 0.6 * len(members))
+                    and count > zero_count):
+                sec_shift[s_i] = off
+                sec_moved[s_i] = True
+    if sec_moved.any():
+        # Sections vote for the page: refit on the elements of sections that agree with it.
+        usable = ~np.isin(sec_of, np.flatnonzero(sec_moved))
+        pose, assignment, agree = refine(pose, tmpl, inp, ti, ii, weights, settings, usable=usable, rounds=2)
+        inv = pose.inverse()
+
+    # Final assignment under each element's own expected place (page pose + section shift).
+    shift_t = np.zeros((n, 2))
+    has_sec = sec_of >= 0
+    shift_t[has_sec] = sec_shift[sec_of[has_sec]]
+    pred = pose.apply(tmpl.centers + shift_t)
+    final = assign(pred, inp.centers, ti, ii, settings.status_gate,
+                   cost_extra=None)
+    results = []
+    ok_mask = np.zeros(n, bool)
+    for k, e in enumerate(tmpl_els):
+        j = int(final[k])
+        s_i = int(sec_of[k])
+        moved_sec = bool(s_i >= 0 and sec_moved[s_i])
+        if j < 0:
+            results.append(ElementResult(e.id, e.kind, e.caption, e.frame, sections[s_i].id if s_i >= 0 else None,
+                                         "missing", None, None, None, bool(judged[k]), moved_sec))
+            continue
+        # Offset in the template's axes, relative to the page pose (section shift included).
+        off = inv.apply(inp.centers[j][None])[0] - tmpl.centers[k]
+        own = off - shift_t[k]
+        ratio = _size_ratio(tmpl, inp, k, j, pose)
+        tol = position_tol + float(slack.get(e.id, 0.0))
+        if np.hypot(*own) > tol:
+            status = "moved"
+        elif abs(ratio - 1.0) > size_tol and tmpl.classes[k] != TEXT:
+            status = "resized"
+        elif moved_sec:
+            status = "moved"
+        else:
+            status = "ok"
+        ok_mask[k] = status == "ok" or (moved_sec and np.hypot(*own) <= tol and status == "moved")
+        results.append(ElementResult(e.id, e.kind, e.caption, e.frame, sections[s_i].id if s_i >= 0 else None,
+                                     status, j, (float(off[0] * MM_PER_POINT), float(off[1] * MM_PER_POINT)),
+                                     ratio, bool(judged[k]), moved_sec))
+    sec_results = []
+    for s_i, s in enumerate(sections):
+        members = np.flatnonzero(sec_of == s_i)
+        jm = members[judged[members]]
+        share = float(ok_mask[jm].mean()) if len(jm) else 1.0
+        status = "moved" if sec_moved[s_i] else ("ok" if share >= 0.999 else "partial")
+        sec_results.append(SectionResult(s.id, s.name, s.frame, status,
+                                         (float(sec_shift[s_i, 0] * MM_PER_POINT), float(sec_shift[s_i, 1] * MM_PER_POINT)),
+                                         share, int(len(members))))
+    support = float(ok_mask[judged].mean()) if judged.any() else 0.0
+    return Match(pose, support, tuple(results), tuple(sec_results), len(hyps), len(ti))
+
+
+def _section_vote(resid: np.ndarray, owners: np.ndarray, settings: SolverSettings):
+    """Residual shift most elements of a section agree on: ``(offset, count, count at zero)``."""
+    bw = settings.shift_bin
+    best = (0, np.zeros(2))
+    zero_count = 0
+    for off in ((0.0, 0.0), (0.5, 0.0), (0.0, 0.5), (0.5, 0.5)):
+        q = np.floor(resid / bw + np.array(off)).astype(np.int64)
+        keys = (q[:, 0] + (1 << 20)) * (1 << 21) + (q[:, 1] + (1 << 20))
+        uk, counts = _distinct_counts(keys, owners)
+        j = int(np.argmax(counts))
+        if counts[j] > best[0]:
+            best = (int(counts[j]), np.median(resid[keys == uk[j]], axis=0))
+    near_zero = np.hypot(*resid.T) <= settings.agree * 2
+    zero_count = len(np.unique(owners[near_zero]))
+    return best[1], best[0], zero_count
+
+
+def _all_missing(tmpl_els, sections, judged) -> tuple[ElementResult, ...]:
+    sec = {eid: s.id for s in sections for eid in s.element_ids}
+    return tuple(ElementResult(e.id, e.kind, e.caption, e.frame, sec.get(e.id), "missing", None, None, None,
+                               bool(judged[k])) for k, e in enumerate(tmpl_els))

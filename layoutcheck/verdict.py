@@ -1,0 +1,173 @@
+"""Verdicts: the one place where measurements are compared with tolerances."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, fields
+
+import numpy as np
+
+from .consensus import Match
+from .elements import MM_PER_POINT
+
+#: Most severe first; a page's verdict is the most severe of its findings.
+VERDICTS = ("error", "unrecognised", "mismatched", "rescaled", "skewed", "shifted", "pass")
+SEVERITY = {v: i for i, v in enumerate(VERDICTS)}
+
+
+@dataclass(frozen=True)
+class Tolerances:
+    """What a page may deviate and still pass. Each default names its source.
+
+    Build from a dict with :meth:`from_dict`; values are validated.
+    """
+
+    #: Degrees of turn. Common practice: OCR zones of a few mm drift out of a field beyond
+    #: about half a degree over an A4 width (0.5 deg over 210 mm is 1.8 mm).
+    max_skew_deg: float = 0.5
+    #: Percent scale error. Common practice: 1 % over an A4 height is 3 mm, the usual margin of
+    #: an OCR zone; "fit to page" printing (about 6 %) is far outside it.
+    max_scale_error_pct: float = 1.0
+    #: Millimetres of shift of the content on the sheet. Common practice for sheet-fed scanning:
+    #: feeders place pages within a few mm.
+    max_shift_mm: float = 5.0
+    #: Millimetres an element may sit from its place after the page pose is removed
+    #: (common practice: half the usual 4 mm margin around an OCR zone).
+    element_tolerance_mm: float = 2.0
+    #: Relative size change of an element still accepted (common practice).
+    element_size_pct: float = 10.0
+    #: Share of judged template elements that must agree for the page to be this form. Chosen
+    #: so a filled form (every element there) passes with room and a different form of the same
+    #: house style (shared rules and margins) does not; see docs/benchmarks.md.
+    min_support: float = 0.5
+
+    def __post_init__(self) -> None:
+        for f in fields(self):
+            v = getattr(self, f.name)
+            if not isinstance(v, (int, float)) or not math.isfinite(v) or v < 0:
+                raise ValueError(f"tolerance {f.name} must be a non-negative number, got {v!r}")
+        if self.min_support > 1:
+            raise ValueError(f"tolerance min_support must be at most 1, got {self.min_support}")
+
+    @classmethod
+    def from_dict(cls, data: dict) -> "Tolerances":
+        known = {f.name for f in fields(cls)}
+        unknown = set(data) - known
+        if unknown:
+            raise ValueError(f"unknown tolerance(s): {', '.join(sorted(unknown))}")
+        return cls(**{k: float(v) for k, v in data.items()})
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One thing found on a page."""
+
+    verdict: str
+    message: str
+    element: str | None = None
+    value: float | None = None
+    limit: float | None = None
+
+    def to_dict(self) -> dict:
+        return {"verdict": self.verdict, "message": self.message, "element": self.element,
+                "value": None if self.value is None else round(self.value, 4),
+                "limit": self.limit}
+
+
+def direction_words(dx_mm: float, dy_mm: float) -> str:
+    """'3.2 mm right and 1.0 mm down' for an offset in mm (y down)."""
+    parts = []
+    if abs(dx_mm) >= 0.05:
+        parts.append(f"{abs(dx_mm):.1f} mm {'right' if dx_mm > 0 else 'left'}")
+    if abs(dy_mm) >= 0.05:
+        parts.append(f"{abs(dy_mm):.1f} mm {'down' if dy_mm > 0 else 'up'}")
+    return " and ".join(parts) or "0.0 mm"
+
+
+def rotation_words(rotation_deg: float) -> str:
+    if abs(abs(rotation_deg) - 180.0) < 1.0:
+        return "upside down"
+    if abs(rotation_deg - 90.0) < 1.0:
+        return "turned a quarter counterclockwise"
+    if abs(rotation_deg + 90.0) < 1.0:
+        return "turned a quarter clockwise"
+    side = "counterclockwise" if rotation_deg > 0 else "clockwise"
+    return f"turned {abs(rotation_deg):.2f}° {side}"
+
+
+def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, float],
+          input_size: tuple[float, float]) -> tuple[str, list[Finding]]:
+    """Verdict and findings of a matched page, most severe finding first."""
+    findings: list[Finding] = []
+    if match.pose is None or match.support < tolerances.min_support:
+        why = match.reason or (f"only {match.support:.0%} of the template's elements agree on one placement "
+                               f"(at least {tolerances.min_support:.0%} needed)")
+        return "unrecognised", [Finding("unrecognised", f"Not this form: {why}", value=match.support,
+                                        limit=tolerances.min_support)]
+    pose = match.pose
+    moved_sections = {s.id for s in match.sections if s.status == "moved"}
+    for s in match.sections:
+        if s.status == "moved":
+            findings.append(Finding("mismatched", f"Section '{s.name}' ({s.id}) is {direction_words(*s.offset_mm)} "
+                                    f"from where this form has it, as a whole", element=s.id,
+                                    value=float(np.hypot(*s.offset_mm)), limit=tolerances.element_tolerance_mm))
+    for e in match.elements:
+        if not e.judged or e.status == "ok" or (e.in_moved_section and e.section in moved_sections and e.status == "moved"):
+            continue
+        who = f"{e.kind} '{e.caption}' ({e.id})" if e.caption else f"{e.kind} ({e.id})"
+        if e.status == "missing":
+            msg = f"{who.capitalize()} is missing"
+            val = None
+        elif e.status == "moved":
+            msg = f"{who.capitalize()} is {direction_words(*e.offset_mm)} from where this form has it"
+            val = float(np.hypot(*e.offset_mm))
+        else:
+            msg = f"{who.capitalize()} is {e.size_ratio:.0%} of its expected size"
+            val = e.size_ratio
+        findings.append(Finding("mismatched", msg, element=e.id, value=val,
+                                limit=tolerances.element_size_pct if e.status == "resized" else tolerances.element_tolerance_mm))
+    sx, sy = pose.scale_x, pose.scale_y
+    worst = max(abs(sx - 1.0), abs(sy - 1.0)) * 100.0
+    if worst > tolerances.max_scale_error_pct:
+        size = f"{pose.scale:.2%}" if abs(sx - sy) < 0.002 else f"{sx:.2%} across and {sy:.2%} down"
+        findings.append(Finding("rescaled", f"Printed at {size} of the form's size (limit ±{tolerances.max_scale_error_pct:g} %)",
+                                value=worst, limit=tolerances.max_scale_error_pct))
+    rot = pose.rotation_deg
+    if abs(rot) > tolerances.max_skew_deg:
+        findings.append(Finding("skewed", f"Content {rotation_words(rot)} (limit {tolerances.max_skew_deg:g}°)",
+                                value=rot, limit=tolerances.max_skew_deg))
+    shift = pose.shift_mm(template_size, input_size)
+    dist = float(np.hypot(*shift))
+    if dist > tolerances.max_shift_mm:
+        findings.append(Finding("shifted", f"Content sits {direction_words(*shift)} off centre on the sheet "
+                                f"(limit {tolerances.max_shift_mm:g} mm)", value=dist, limit=tolerances.max_shift_mm))
+    findings.sort(key=lambda f: SEVERITY[f.verdict])
+    verdict = findings[0].verdict if findings else "pass"
+    return verdict, findings
+
+
+def offending(match: Match) -> list[dict]:
+    """Offending elements and sections for the record; a section moved as one is one entry."""
+    out = []
+    moved = {s.id: s for s in match.sections if s.status == "moved"}
+    for s in moved.values():
+        out.append({"id": s.id, "kind": "section", "caption": s.name, "status": "moved",
+                    "frame": [round(v, 2) for v in s.frame], "offset_mm": [round(v, 2) for v in s.offset_mm],
+                    "size_ratio": None})
+    for e in match.elements:
+        if not e.judged or e.status == "ok":
+            continue
+        if e.in_moved_section and e.section in moved and e.status == "moved":
+            continue
+        out.append({"id": e.id, "kind": e.kind, "caption": e.caption, "status": e.status,
+                    "frame": [round(v, 2) for v in e.frame],
+                    "offset_mm": None if e.offset_mm is None else [round(v, 2) for v in e.offset_mm],
+                    "size_ratio": None if e.size_ratio is None else round(e.size_ratio, 4)})
+    return out
+
+
+def points_tolerance(tolerances: Tolerances) -> float:
+    return tolerances.element_tolerance_mm / MM_PER_POINT

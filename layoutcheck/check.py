@@ -16,7 +16,7 @@ import numpy as np
 
 from .consensus import Match, SolverSettings, solve
 from .elements import MM_PER_POINT, PageElements
-from .sources import PageError, RasterPage, ReadLimits, VectorPage, read_pages, render_pdf_page, where
+from .sources import PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page, where
 from .template import Template, TemplatePage, template_page, with_raster_sections
 from .verdict import Finding, Tolerances, judge, offending
 
@@ -78,7 +78,9 @@ def learn(references: Sequence[str], name: str | None = None, pages: set[int] | 
     if len(refs) > 1:
         from .samples import learn_from_samples
 
-        return learn_from_samples(refs, name=name, pages=pages, limits=limits, section_names=section_names)
+        from .zones import with_zones
+
+        return with_zones(learn_from_samples(refs, name=name, pages=pages, limits=limits, section_names=section_names))
     ref = refs[0]
     out_pages: list[TemplatePage] = []
     for page in read_pages(ref, limits, pages):
@@ -103,7 +105,9 @@ def learn(references: Sequence[str], name: str | None = None, pages: set[int] | 
     if not out_pages:
         raise LearnError(f"{where(ref, None)}: no pages selected")
     stem = name or _default_name(ref)
-    return Template(stem, tuple(out_pages), (ref.split("/")[-1],))
+    from .zones import with_zones
+
+    return with_zones(Template(stem, tuple(out_pages), (ref.split("/")[-1],)))
 
 
 def _default_name(path: str) -> str:
@@ -117,6 +121,14 @@ def _default_name(path: str) -> str:
 class CheckSettings:
     tolerances: Tolerances = Tolerances()
     solver: SolverSettings = SolverSettings()
+    #: Add ``zones`` (each zone of the template mapped onto the input) to every record.
+    zones: bool = False
+    #: Folder for normalised page images (see :mod:`layoutcheck.normalise`); None writes none.
+    normalise_dir: str | None = None
+    #: Resolution of normalised images; None: the input's (200 dpi for born-digital pages).
+    normalise_dpi: float | None = None
+    #: ``png`` or ``tiff``.
+    normalise_format: str = "png"
 
 
 def judged_mask(tp_elements, input_elements: PageElements) -> np.ndarray:
@@ -174,6 +186,13 @@ def error_record(source: str, page: int | None, message: str, elapsed_ms: float 
     }
 
 
+def unrecognised_record(source: str, page: int | None, message: str, t0: float) -> dict:
+    """A page that was read but shows no form at all (blank, black): one finding says why."""
+    rec = error_record(source, page, message, (time.perf_counter() - t0) * 1000)
+    rec.update(verdict="unrecognised", error=None, findings=[Finding("unrecognised", message, value=0.0).to_dict()])
+    return rec
+
+
 def pose_record(match: Match, tp: TemplatePage, input_size: tuple[float, float]) -> dict | None:
     if match.pose is None:
         return None
@@ -194,16 +213,23 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
     t0 = time.perf_counter()
     if isinstance(page, PageError):
         return error_record(page.source, page.page, page.message)
+    # A page that was read but cannot hold a form (blank, black) is "unrecognised", not "error":
+    # errors are for input that could not be read at all.
+    problem = page_content_problem(page.image) if isinstance(page, RasterPage) else None
+    if problem:
+        return unrecognised_record(page.source, page.page, f"Not a form: {problem}", t0)
     try:
         found = extract(page)
     except Exception as exc:  # an extractor bug on one page must not end the batch
         msg = f"{where(page.source, page.page)}: elements could not be read ({type(exc).__name__}: {exc})"
         return error_record(page.source, page.page, msg, (time.perf_counter() - t0) * 1000)
-    return record_for(page.source, page.page, found, templates, settings, t0)
+    if not found.elements:
+        return unrecognised_record(page.source, page.page, "Not a form: no lines, boxes or text found on the page (blank page?)", t0)
+    return record_for(page.source, page.page, found, templates, settings, t0, page=page)
 
 
 def record_for(source: str, page_no: int, found: PageElements, templates: Sequence[Template],
-               settings: CheckSettings, t0: float | None = None) -> dict:
+               settings: CheckSettings, t0: float | None = None, page=None) -> dict:
     t0 = time.perf_counter() if t0 is None else t0
     template, tp, match = best_match(templates, found, settings)
     input_size = (found.width, found.height)
@@ -233,6 +259,46 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
     }
     if not recognised:
         rec["findings"][0]["message"] += f" (closest: {template.name} page {tp.number})"
+    if settings.zones or settings.normalise_dir:
+        handoff(rec, page, found, tp, match, settings)
+    return rec
+
+
+#: Verdicts whose page is the form in a known pose, so it can be normalised.
+NORMALISABLE = ("pass", "shifted", "skewed", "rescaled")
+
+
+def handoff(rec: dict, page, found: PageElements, tp: TemplatePage, match: Match, settings: CheckSettings) -> dict:
+    """Add the OCR hand-off to a record: ``zones`` and the ``normalised`` image, as asked.
+
+    ``page`` is the input page (for its dpi and image); without it zones are given in points.
+    """
+    recognised = rec["verdict"] != "unrecognised" and match.pose is not None
+    if settings.zones:
+        from .zones import zones_for_match
+
+        if not recognised:
+            rec["zones"] = []
+        elif isinstance(page, RasterPage):
+            rec["zones"] = zones_for_match(tp, match, page.dpi, (page.image.shape[1], page.image.shape[0]))
+        else:
+            rec["zones"] = zones_for_match(tp, match, None, (found.width, found.height))
+    if settings.normalise_dir:
+        rec["normalised"] = None
+        if rec["verdict"] in NORMALISABLE and match.pose is not None and page is not None:
+            from .normalise import normalise_page
+
+            rec["normalised"] = normalise_page(page, match.pose, (tp.width, tp.height), settings.normalise_dir,
+                                               settings.normalise_dpi, settings.normalise_format)
+    return rec
+
+
+def handoff_fields(rec: dict, settings: CheckSettings) -> dict:
+    """Empty ``zones`` / ``normalised`` fields on a record without them, when they were asked for."""
+    if settings.zones:
+        rec.setdefault("zones", [])
+    if settings.normalise_dir:
+        rec.setdefault("normalised", None)
     return rec
 
 
@@ -240,7 +306,7 @@ def check_file(path: str, templates: Sequence[Template], settings: CheckSettings
                limits: ReadLimits = ReadLimits(), pages: set[int] | None = None) -> Iterator[dict]:
     """Records for every page of one file, in page order; never raises for bad input."""
     for page in read_pages(path, limits, pages):
-        yield check_page(page, templates, settings)
+        yield handoff_fields(check_page(page, templates, settings), settings)
 
 
 def check_files(paths: Iterable[str], templates: Sequence[Template], settings: CheckSettings = CheckSettings(),

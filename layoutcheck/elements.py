@@ -224,16 +224,20 @@ def points(millimetres: float | np.ndarray) -> float | np.ndarray:
     return millimetres / MM_PER_POINT
 
 
-def assign_ids(elements: Sequence[Element]) -> list[Element]:
-    """Give elements stable ids in reading order (top to bottom, then left to right), per kind.
+def assign_ids(elements: Sequence[Element], row_gap: float = 3.0) -> list[Element]:
+    """Give elements stable ids in reading order (rows top to bottom, then left to right), per kind.
 
-    Reading order uses rows of 3 points so that elements on one printed line sort left to right
-    even when their tops differ by a hair.
+    Elements whose tops lie within ``row_gap`` points of the row's first element share a row, so
+    elements on one printed line sort left to right even when their tops differ by a hair.
     """
-    def key(e: Element):
-        return (round(e.frame[1] / 3.0), e.frame[0], e.frame[2], e.frame[3])
-
-    ordered = sorted(elements, key=key)
+    by_top = sorted(elements, key=lambda e: (e.frame[1], e.frame[0]))
+    rows: list[list[Element]] = []
+    for e in by_top:
+        if rows and e.frame[1] - rows[-1][0].frame[1] <= row_gap:
+            rows[-1].append(e)
+        else:
+            rows.append([e])
+    ordered = [e for row in rows for e in sorted(row, key=lambda e: (e.frame[0], e.frame[1], e.frame[2], e.frame[3]))]
     counters: dict[str, int] = {}
     out = []
     for e in ordered:

@@ -125,29 +125,74 @@ def read_pages(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pages
     """Pages of one input file, in order; bad input comes back as :class:`PageError`.
 
     ``pages`` limits the 1-based page numbers read (default: all, up to ``limits.max_pages``).
+    A :class:`VectorPage` is valid until the next page is taken from the iterator.
     """
+    with open_document(path, limits, pages) as doc:
+        for entry in doc.plan:
+            yield entry if isinstance(entry, PageError) else doc.page(entry)
+
+
+# -- open documents -------------------------------------------------------------------------------
+class Document:
+    """An input file, open for reading one page at a time; never raises for bad input.
+
+    :attr:`plan` lists, in order, what the file yields: 1-based page numbers to read with
+    :meth:`page`, and :class:`PageError` entries that stand for themselves (the whole file
+    unreadable, page None; or the pages beyond ``max_pages``). Only one page is held open at a
+    time: taking a page closes the previous one, so memory stays bounded on long files.
+    """
+
+    def __init__(self, source: str, plan: list | None = None):
+        self.source = source
+        self.plan: list[int | PageError] = plan or []
+
+    def page(self, n: int) -> Page:  # pragma: no cover - overridden
+        return PageError(self.source, n, f"{where(self.source, n)}: no such page")
+
+    def close(self) -> None:
+        """Release the file; safe to call twice."""
+
+    def __enter__(self) -> "Document":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+
+def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pages: set[int] | None = None) -> Document:
+    """Open one input file (PDF, PNG, JPEG, TIFF) and plan what it yields; never raises."""
     source = str(path)
     p = Path(source)
     try:
         if not p.exists():
-            yield PageError(source, None, f"{where(source, None)}: no such file")
-            return
+            return _failed(source, "no such file")
         if p.is_dir():
-            yield PageError(source, None, f"{where(source, None)}: is a folder, not a file")
-            return
+            return _failed(source, "is a folder, not a file")
         if p.stat().st_size == 0:
-            yield PageError(source, None, f"{where(source, None)}: empty file (0 bytes)")
-            return
-        with open(p, "rb") as fh:
-            head = fh.read(8)
-        if head.startswith(b"%PDF") or (p.suffix.lower() in PDF_EXTENSIONS and b"%PDF" in _head(p, 1024)):
-            yield from _read_pdf(source, limits, pages)
-        elif p.suffix.lower() in PDF_EXTENSIONS:
-            yield PageError(source, None, f"{where(source, None)}: not a PDF (no %PDF header)")
-        else:
-            yield from _read_image(source, limits, pages)
+            return _failed(source, "empty file (0 bytes)")
+        head = _head(p, 1024)
+        if head.startswith(b"%PDF") or (p.suffix.lower() in PDF_EXTENSIONS and b"%PDF" in head):
+            return _PdfDocument.open(source, limits, pages)
+        if p.suffix.lower() in PDF_EXTENSIONS:
+            return _failed(source, "not a PDF (no %PDF header)")
+        return _ImageDocument.open(source, limits, pages)
     except Exception as exc:  # last line of defence: a reader bug must not end the batch
-        yield PageError(source, None, f"{where(source, None)}: could not be read ({type(exc).__name__}: {_one_line(exc)})")
+        return _failed(source, f"could not be read ({type(exc).__name__}: {_one_line(exc)})")
+
+
+def _failed(source: str, what: str) -> Document:
+    return Document(source, [PageError(source, None, f"{where(source, None)}: {what}")])
+
+
+def _numbers(source: str, count: int, limits: ReadLimits, pages: set[int] | None) -> list:
+    """Page numbers to read, then one entry for the pages beyond the limit."""
+    shown = min(count, limits.max_pages)
+    plan: list = [n for n in range(1, shown + 1) if pages is None or n in pages]
+    if count > limits.max_pages and (pages is None or any(n > limits.max_pages for n in pages)):
+        n = limits.max_pages + 1
+        plan.append(PageError(source, n, f"{where(source, n)}: file has {count} pages, more than {limits.max_pages}; "
+                                         f"pages {n}-{count} are not read (raise --max-pages)"))
+    return plan
 
 
 def _head(p: Path, n: int) -> bytes:
@@ -157,45 +202,54 @@ def _head(p: Path, n: int) -> bytes:
 
 def _one_line(exc: BaseException) -> str:
     text = " ".join(str(exc).split())
+    if not text and exc.args and isinstance(exc.args[0], BaseException):
+        return _one_line(exc.args[0])
     return text[:200] if text else type(exc).__name__
 
 
 # -- images ---------------------------------------------------------------------------------------
-def _read_image(source: str, limits: ReadLimits, pages: set[int] | None) -> Iterator[Page]:
-    from PIL import Image, ImageOps, ImageSequence, UnidentifiedImageError
+class _ImageDocument(Document):
+    def __init__(self, source: str, plan: list, img, limits: ReadLimits):
+        super().__init__(source, plan)
+        self._img = img
+        self._limits = limits
 
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", Image.DecompressionBombWarning)
-            img = Image.open(source)
-    except Image.DecompressionBombError as exc:
-        yield PageError(source, None, f"{where(source, None)}: image too large to decode safely ({_one_line(exc)})")
-        return
-    except UnidentifiedImageError:
-        yield PageError(source, None, f"{where(source, None)}: not an image this tool reads (PNG, JPEG, TIFF or PDF)")
-        return
-    with img:
-        n = 0
-        frames = ImageSequence.Iterator(img)
-        while True:
-            n += 1
-            try:
-                frame = next(frames)
-            except StopIteration:
-                break
-            except Exception as exc:
-                yield PageError(source, n, f"{where(source, n)}: frame could not be read ({_one_line(exc)})")
-                break
-            if n > limits.max_pages:
-                yield PageError(source, n, f"{where(source, n)}: more than {limits.max_pages} pages; the rest is not read (raise --max-pages)")
-                break
-            if pages is not None and n not in pages:
-                continue
-            yield _image_page(source, n, frame, limits, ImageOps)
+    @classmethod
+    def open(cls, source: str, limits: ReadLimits, pages: set[int] | None) -> Document:
+        from PIL import Image, UnidentifiedImageError
+
+        try:
+            with warnings.catch_warnings():
+                # Our own pixel limit is checked before anything is decoded; Pillow's bomb
+                # check stays on as a second guard (it refuses beyond twice its own limit).
+                warnings.simplefilter("ignore", Image.DecompressionBombWarning)
+                img = Image.open(source)
+        except Image.DecompressionBombError as exc:
+            return _failed(source, f"image is over the pixel limit; not decoded ({_one_line(exc)})")
+        except UnidentifiedImageError:
+            return _failed(source, "not an image this tool reads (PNG, JPEG, TIFF or PDF)")
+        except Exception as exc:
+            return _failed(source, f"image header is damaged ({_one_line(exc)})")
+        try:
+            count = int(getattr(img, "n_frames", 1) or 1)
+        except Exception:
+            count = 1  # a broken frame chain: read what the first frame gives
+        return cls(source, _numbers(source, count, limits, pages), img, limits)
+
+    def page(self, n: int) -> Page:
+        try:
+            self._img.seek(n - 1)
+        except Exception as exc:
+            return PageError(self.source, n, f"{where(self.source, n)}: frame could not be reached ({_one_line(exc)})")
+        return _image_page(self.source, n, self._img, self._limits)
+
+    def close(self) -> None:
+        with contextlib.suppress(Exception):
+            self._img.close()
 
 
-def _image_page(source: str, n: int, frame, limits: ReadLimits, ImageOps) -> Page:
-    from PIL import Image
+def _image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
+    from PIL import Image, ImageOps
 
     w, h = frame.size
     if w * h > limits.max_pixels:
@@ -235,58 +289,99 @@ def _image_page(source: str, n: int, frame, limits: ReadLimits, ImageOps) -> Pag
 
 
 # -- PDFs -----------------------------------------------------------------------------------------
-def _read_pdf(source: str, limits: ReadLimits, pages: set[int] | None) -> Iterator[Page]:
-    import pdfplumber
+def _is_password_error(exc: BaseException) -> bool:
     from pdfminer.pdfdocument import PDFPasswordIncorrect
 
-    try:
-        pdf = pdfplumber.open(source, password=limits.password or "")
-    except PDFPasswordIncorrect:
-        hint = "wrong password" if limits.password else "encrypted; give --password"
-        yield PageError(source, None, f"{where(source, None)}: PDF is {hint}")
-        return
-    except Exception as exc:
-        yield PageError(source, None, f"{where(source, None)}: damaged PDF ({_one_line(exc)})")
-        return
-    with pdf:
+    seen = 0
+    while exc is not None and seen < 5:
+        if isinstance(exc, PDFPasswordIncorrect) or any(isinstance(a, PDFPasswordIncorrect) for a in exc.args):
+            return True
+        exc = exc.__cause__ or exc.__context__
+        seen += 1
+    return False
+
+
+class _PdfDocument(Document):
+    def __init__(self, source: str, plan: list, pdf, limits: ReadLimits):
+        super().__init__(source, plan)
+        self._pdf = pdf
+        self._limits = limits
+        self._open_page = None
+        self._pdfium = None
+
+    @classmethod
+    def open(cls, source: str, limits: ReadLimits, pages: set[int] | None) -> Document:
+        import pdfplumber
+
+        try:
+            pdf = pdfplumber.open(source, password=limits.password or "")
+        except Exception as exc:
+            if _is_password_error(exc):
+                return _failed(source, "PDF is " + ("encrypted and the password is wrong" if limits.password
+                                                    else "encrypted; give --password"))
+            return _failed(source, f"damaged PDF ({_one_line(exc)})")
         try:
             count = len(pdf.pages)
         except Exception as exc:
-            yield PageError(source, None, f"{where(source, None)}: damaged PDF page tree ({_one_line(exc)})")
-            return
-        if count == 0:
-            yield PageError(source, None, f"{where(source, None)}: PDF has no pages (empty or broken page tree)")
-            return
-        for n in range(1, count + 1):
-            if n > limits.max_pages:
-                yield PageError(source, n, f"{where(source, n)}: more than {limits.max_pages} pages; pages {n}-{count} are not read (raise --max-pages)")
-                return
-            if pages is not None and n not in pages:
-                continue
-            try:
-                pl = pdf.pages[n - 1]
-                page = _pdf_page(source, n, pl, limits)
-            except Exception as exc:
-                yield PageError(source, n, f"{where(source, n)}: damaged page ({_one_line(exc)})")
-                continue
-            yield page
             with contextlib.suppress(Exception):
-                pl.close()
+                pdf.close()
+            if _is_password_error(exc):
+                return _failed(source, "PDF is encrypted; give --password")
+            return _failed(source, f"damaged PDF page tree ({_one_line(exc)})")
+        if count == 0:
+            with contextlib.suppress(Exception):
+                pdf.close()
+            return _failed(source, "PDF has no pages (empty or broken page tree)")
+        return cls(source, _numbers(source, count, limits, pages), pdf, limits)
+
+    def _release(self) -> None:
+        if self._open_page is not None:
+            with contextlib.suppress(Exception):
+                self._open_page.close()
+            self._open_page = None
+
+    def page(self, n: int) -> Page:
+        self._release()
+        try:
+            pl = self._pdf.pages[n - 1]
+            self._open_page = pl
+            width, height, rot = _display_size(pl)
+            if is_scanned_page(pl):
+                dpi = _image_dpi(pl, width)
+                self._release()
+                return self._render(n, dpi)
+            return VectorPage(self.source, n, width, height, pl, rot, self.source)
+        except Exception as exc:
+            self._release()
+            return PageError(self.source, n, f"{where(self.source, n)}: damaged page ({_one_line(exc)})")
+
+    def _render(self, n: int, dpi: float) -> Page:
+        import pypdfium2 as pdfium
+
+        if self._pdfium is None:
+            try:
+                self._pdfium = pdfium.PdfDocument(self.source, password=self._limits.password)
+            except pdfium.PdfiumError as exc:
+                return PageError(self.source, n, f"{where(self.source, n)}: could not be rendered ({_one_line(exc)})")
+        return _render_page(self._pdfium, self.source, n, self._limits, dpi)
+
+    def close(self) -> None:
+        self._release()
+        for obj in (self._pdfium, self._pdf):
+            if obj is not None:
+                with contextlib.suppress(Exception):
+                    obj.close()
+        self._pdfium = self._pdf = None
 
 
 def _display_size(pl) -> tuple[float, float, int]:
-    """Page size in points as displayed (after /Rotate), and the rotation."""
+    """Page size in points as displayed (the CropBox after /Rotate), and the rotation.
+
+    pdfplumber gives the CropBox already turned by /Rotate, in top-left coordinates.
+    """
     rot = int(pl.rotation or 0) % 360
-    x0, top, x1, bottom = pl.bbox
-    w, h = float(x1 - x0), float(bottom - top)
-    return (h, w, rot) if rot in (90, 270) else (w, h, rot)
-
-
-def _pdf_page(source: str, n: int, pl, limits: ReadLimits) -> Page:
-    width, height, rot = _display_size(pl)
-    if is_scanned_page(pl):
-        return render_pdf_page(source, n, limits, dpi=_image_dpi(pl, width))
-    return VectorPage(source, n, width, height, pl, rot, source)
+    x0, top, x1, bottom = getattr(pl, "cropbox", None) or pl.bbox
+    return float(x1 - x0), float(bottom - top), rot
 
 
 def is_scanned_page(pl) -> bool:
@@ -326,6 +421,14 @@ def render_pdf_page(source: str, n: int, limits: ReadLimits, dpi: float) -> Page
     except pdfium.PdfiumError as exc:
         return PageError(source, n, f"{where(source, n)}: could not be rendered ({_one_line(exc)})")
     try:
+        return _render_page(doc, source, n, limits, dpi)
+    finally:
+        doc.close()
+
+
+def _render_page(doc, source: str, n: int, limits: ReadLimits, dpi: float) -> Page:
+    page = None
+    try:
         page = doc[n - 1]
         w_pt, h_pt = page.get_size()
         if (page.get_rotation() % 180) == 90:
@@ -335,12 +438,36 @@ def render_pdf_page(source: str, n: int, limits: ReadLimits, dpi: float) -> Page
             return PageError(source, n, f"{where(source, n)}: rendering at {dpi:g} dpi would exceed {limits.max_pixels:,} pixels")
         bitmap = page.render(scale=dpi / POINTS_PER_INCH, grayscale=True)
         arr = np.array(bitmap.to_numpy(), dtype=np.uint8)
+        with contextlib.suppress(Exception):
+            bitmap.close()
         if arr.ndim == 3:
             arr = arr[..., 0]
-        page.close()
         return RasterPage(source, n, arr, float(dpi), False)
+    except Exception as exc:
+        return PageError(source, n, f"{where(source, n)}: could not be rendered ({_one_line(exc)})")
     finally:
-        doc.close()
+        if page is not None:
+            with contextlib.suppress(Exception):
+                page.close()
+
+
+def page_content_problem(image: np.ndarray) -> str | None:
+    """Why a grey page image cannot hold a form, or None: blank paper or solid black.
+
+    Dark means below mid-grey (128). A printed form inks a few percent of the sheet (common
+    practice: office forms run at 2-15 % coverage); under 0.05 % is a blank sheet with specks,
+    over 85 % is a black page (a scan with the lid open, or an inverted image).
+    """
+    if image.size == 0:
+        return "page image is empty"
+    step = max(1, int(np.sqrt(image.size / 1_000_000)))  # a sample of about a million pixels
+    dark = float((image[::step, ::step] < 128).mean())
+    if dark < 0.0005:
+        return f"blank page ({dark:.2%} of the sheet is dark); no form on it"
+    if dark > 0.85:
+        return f"page is almost all black ({dark:.0%} of the sheet is dark); no form can be seen"
+    return None
+
 
 
 def render_page_image(source: str, page: int, dpi: float, limits: ReadLimits = ReadLimits()) -> np.ndarray:

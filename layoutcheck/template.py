@@ -51,6 +51,30 @@ class Section:
 
 
 @dataclass(frozen=True)
+class Zone:
+    """A named area of a page that OCR reads, such as a form field or a captioned box.
+
+    ``frame`` is ``(x0, top, x1, bottom)`` in template points; ``element_ids`` are the template
+    elements (field, box) whose place decides whether the zone can be trusted on an input;
+    ``origin`` says where it came from: ``"field"``, ``"box"`` or ``"file"`` (a zones file).
+    """
+
+    name: str
+    frame: tuple[float, float, float, float]
+    element_ids: tuple[str, ...] = ()
+    origin: str = "box"
+
+    def to_dict(self) -> dict:
+        return {"name": self.name, "frame": [round(v, 3) for v in self.frame],
+                "elements": list(self.element_ids), "origin": self.origin}
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "Zone":
+        return cls(str(d["name"]), tuple(float(v) for v in d["frame"]),  # type: ignore[arg-type]
+                   tuple(str(e) for e in d.get("elements", [])), str(d.get("origin", "box")))
+
+
+@dataclass(frozen=True)
 class TemplatePage:
     """One page of a template."""
 
@@ -66,6 +90,8 @@ class TemplatePage:
     slack: dict = field(default_factory=dict)
     #: Element ids that were not found on every good sample.
     unstable: tuple[str, ...] = ()
+    #: Named zones for OCR (see :mod:`layoutcheck.zones`); empty in templates written before them.
+    zones: tuple[Zone, ...] = ()
 
     def elements_for(self, source: str) -> tuple[Element, ...]:
         """The element set to compare an input of this source ("vector" or "raster") with."""
@@ -87,6 +113,7 @@ class TemplatePage:
             "raster_elements": [e.to_dict() for e in self.raster_elements],
             "slack": {k: round(float(v), 3) for k, v in self.slack.items()},
             "unstable": list(self.unstable),
+            "zones": [z.to_dict() for z in self.zones],
         }
 
     @classmethod
@@ -100,6 +127,7 @@ class TemplatePage:
             raster_elements=tuple(Element.from_dict(e) for e in d.get("raster_elements", [])),
             slack={str(k): float(v) for k, v in d.get("slack", {}).items()},
             unstable=tuple(d.get("unstable", [])),
+            zones=tuple(Zone.from_dict(z) for z in d.get("zones", [])),
         )
 
 
@@ -298,7 +326,7 @@ def with_raster_sections(page: TemplatePage) -> TemplatePage:
         extra[best.id].append(e.id)
     sections = tuple(Section(s.id, s.name, s.frame, s.element_ids + tuple(extra[s.id])) for s in page.sections)
     return TemplatePage(page.number, page.width, page.height, page.elements, sections, page.raster_elements,
-                        page.slack, page.unstable)
+                        page.slack, page.unstable, page.zones)
 
 
 def _frame_distance(f: Sequence[float], x: float, y: float) -> float:

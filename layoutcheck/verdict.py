@@ -77,6 +77,11 @@ class Finding:
                 "limit": self.limit}
 
 
+def _people_first(e) -> int:
+    """Boxes and fields first, then rules and marks, then printed text: what a person looks for."""
+    return {"box": 0, "checkbox": 0, "field": 1, "mark": 2, "hline": 3, "vline": 3, "line": 3}.get(e.kind, 4)
+
+
 def direction_words(dx_mm: float, dy_mm: float) -> str:
     """'3.2 mm right and 1.0 mm down' for an offset in mm (y down)."""
     parts = []
@@ -111,21 +116,22 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
     moved_sections = {s.id for s in match.sections if s.status == "moved"}
     for s in match.sections:
         if s.status == "moved":
-            findings.append(Finding("mismatched", f"Section '{s.name}' ({s.id}) is {direction_words(*s.offset_mm)} "
-                                    f"from where this form has it, as a whole", element=s.id,
-                                    value=float(np.hypot(*s.offset_mm)), limit=tolerances.element_tolerance_mm))
-    for e in match.elements:
+            dist = float(np.hypot(*s.offset_mm))
+            findings.append(Finding("mismatched", f"Section '{s.name}' ({s.id}) is {dist:.1f} mm from where this form "
+                                    f"has it, as a whole ({direction_words(*s.offset_mm)})", element=s.id,
+                                    value=dist, limit=tolerances.element_tolerance_mm))
+    for e in sorted(match.elements, key=_people_first):
         if not e.judged or e.status == "ok" or (e.in_moved_section and e.section in moved_sections and e.status == "moved"):
             continue
-        who = f"{e.kind} '{e.caption}' ({e.id})" if e.caption else f"{e.kind} ({e.id})"
+        who = f"{e.kind.capitalize()} '{e.caption}' ({e.id})" if e.caption else f"{e.kind.capitalize()} ({e.id})"
         if e.status == "missing":
-            msg = f"{who.capitalize()} is missing"
+            msg = f"{who} is missing"
             val = None
         elif e.status == "moved":
-            msg = f"{who.capitalize()} is {direction_words(*e.offset_mm)} from where this form has it"
             val = float(np.hypot(*e.offset_mm))
+            msg = f"{who} is {val:.1f} mm from where this form has it ({direction_words(*e.offset_mm)})"
         else:
-            msg = f"{who.capitalize()} is {e.size_ratio:.0%} of its expected size"
+            msg = f"{who} is {e.size_ratio:.0%} of its expected size"
             val = e.size_ratio
         findings.append(Finding("mismatched", msg, element=e.id, value=val,
                                 limit=tolerances.element_size_pct if e.status == "resized" else tolerances.element_tolerance_mm))
@@ -157,7 +163,7 @@ def offending(match: Match) -> list[dict]:
         out.append({"id": s.id, "kind": "section", "caption": s.name, "status": "moved",
                     "frame": [round(v, 2) for v in s.frame], "offset_mm": [round(v, 2) for v in s.offset_mm],
                     "size_ratio": None})
-    for e in match.elements:
+    for e in sorted(match.elements, key=_people_first):
         if not e.judged or e.status == "ok":
             continue
         if e.in_moved_section and e.section in moved and e.status == "moved":

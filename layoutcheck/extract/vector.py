@@ -1,8 +1,9 @@
 """Elements of a born-digital PDF page, read with pdfplumber.
 
-pdfplumber already gives coordinates with a top-left origin and applies ``/Rotate``; the one
-remaining step to our convention is moving the origin to the CropBox corner, done in
-:func:`_to_page` and nowhere else.
+pdfplumber already gives coordinates with a top-left origin (relative to the MediaBox) and
+applies ``/Rotate``; the one remaining step to our convention is moving the origin to the visible
+CropBox corner, done in :func:`_to_page` and nowhere else (:func:`layoutcheck.sources._display_size`
+gives the matching page size).
 """
 
 from __future__ import annotations
@@ -23,7 +24,7 @@ MARK_SIDE = (7.0, 34.0)
 
 def _to_page(pl, pts: np.ndarray) -> np.ndarray:
     """pdfplumber coordinates to page coordinates: origin at the visible (CropBox) top-left."""
-    x0, top = float(pl.bbox[0]), float(pl.bbox[1])
+    x0, top = float(pl.cropbox[0]), float(pl.cropbox[1])
     return np.asarray(pts, dtype=float) - np.array([x0, top])
 
 

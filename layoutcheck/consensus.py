@@ -189,9 +189,13 @@ def _distinct_counts(keys: np.ndarray, owners: np.ndarray) -> tuple[np.ndarray, 
     """Per distinct key, how many distinct owners voted for it."""
     if len(keys) == 0:
         return np.zeros(0, np.int64), np.zeros(0, np.int64)
-    both = np.unique(np.stack([keys, owners.astype(np.int64)], axis=1), axis=0)
-    uk, counts = np.unique(both[:, 0], return_counts=True)
-    return uk, counts
+    keys = np.asarray(keys, np.int64)
+    owners = np.asarray(owners, np.int64)
+    k0 = keys.min()
+    span = int(owners.max()) + 1
+    both = np.unique((keys - k0) * span + owners)  # one sort of one int64 array
+    uk, counts = np.unique(both // span, return_counts=True)
+    return uk + k0, counts
 
 
 def _quadrant_sizes(ts: np.ndarray, k: np.ndarray) -> np.ndarray:
@@ -240,10 +244,12 @@ def _peaks_1d(values: np.ndarray, owners: np.ndarray, bin_width: float, lo: floa
     else:
         keep = (keys >= 0) & (keys < nb)
         keys, own = keys[keep], own[keep]
-    uk, counts = _distinct_counts(keys, own)
-    hist = np.zeros(nb)
-    hist[uk] = counts
-    return hist
+    if len(keys) == 0:
+        return np.zeros(nb)
+    # Bins are few: a bins x owners table of "voted" flags counts each owner once per bin.
+    seen = np.zeros((nb, int(own.max()) + 1), bool)
+    seen[keys, own] = True
+    return seen.sum(axis=1).astype(float)
 
 
 def _circ_diff(a: np.ndarray, b: float) -> np.ndarray:
@@ -388,6 +394,14 @@ def assign(pred: np.ndarray, inp_centers: np.ndarray, ti: np.ndarray, ii: np.nda
     if len(ti) == 0:
         return out
     n_i = int(inp_centers.shape[0])
+    # Most elements have exactly one candidate that has no other: assign those directly.
+    t_deg = np.bincount(ti, minlength=n_t)
+    i_deg = np.bincount(ii, minlength=n_i)
+    lone = (t_deg[ti] == 1) & (i_deg[ii] == 1)
+    out[ti[lone]] = ii[lone]
+    ti, ii, cost = ti[~lone], ii[~lone], cost[~lone]
+    if len(ti) == 0:
+        return out
     g = coo_matrix((np.ones(len(ti)), (ti, n_t + ii)), shape=(n_t + n_i, n_t + n_i))
     ncomp, labels = connected_components(g, directed=False)
     comp = labels[ti]
@@ -395,13 +409,10 @@ def assign(pred: np.ndarray, inp_centers: np.ndarray, ti: np.ndarray, ii: np.nda
     ti, ii, cost, comp = ti[order], ii[order], cost[order], comp[order]
     starts = np.flatnonzero(np.r_[True, comp[1:] != comp[:-1]])
     ends = np.r_[starts[1:], len(comp)]
+    big = gate * 10.0 + 1.0
     for s, e in zip(starts, ends):
-        if e - s == 1:
-            out[ti[s]] = ii[s]
-            continue
         rt, rinv = np.unique(ti[s:e], return_inverse=True)
         ct, cinv = np.unique(ii[s:e], return_inverse=True)
-        big = gate * 10.0 + 1.0
         mat = np.full((len(rt), len(ct)), big)
         np.minimum.at(mat, (rinv, cinv), cost[s:e])
         r, c = linear_sum_assignment(mat)
@@ -448,14 +459,24 @@ def refine(pose: Pose, tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: 
         new = fit_pose(tmpl.centers[use], inp.centers[assignment[use]], weights[use], settings)
         if new is None:
             return pose, assignment, agree
+        moved = float(np.abs(new.apply(tmpl.centers) - pred).max())
         pose = new
         gate = max(settings.agree * 3.0, gate * 0.6)
+        if moved < 0.01 and r >= 1:
+            break  # converged: no predicted place moved by a hundredth of a point
     pred = pose.apply(tmpl.centers)
     assignment = assign(pred, inp.centers, ti, ii, settings.refine_gate)
     got = assignment >= 0
     agree = np.zeros(len(pred), bool)
     agree[got] = np.hypot(*(pred[got] - inp.centers[assignment[got]]).T) <= settings.agree
     return pose, assignment, agree
+
+
+def _strong(hyps: list[Hypothesis]) -> list[Hypothesis]:
+    """Hypotheses worth refining: those with at least half the votes of the best."""
+    if not hyps:
+        return hyps
+    return [h for h in hyps if h.votes >= 0.5 * hyps[0].votes]
 
 
 def solve_correspondences(model_frames: FrameArrays, input_frames: FrameArrays, ti: np.ndarray, ii: np.ndarray,
@@ -467,7 +488,7 @@ def solve_correspondences(model_frames: FrameArrays, input_frames: FrameArrays, 
     """
     if weights is None:
         weights = np.ones(len(model_frames.centers))
-    hyps = vote_pose(model_frames, input_frames, ti, ii, settings)
+    hyps = _strong(vote_pose(model_frames, input_frames, ti, ii, settings))
     best = None
     for h in hyps:
         pose, assignment, agree = refine(h.pose, model_frames, input_frames, ti, ii, weights, settings)
@@ -531,7 +552,7 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     tmpl, inp = FrameArrays.of(tmpl_els), FrameArrays.of(inp_els)
     ti, ii = candidate_pairs(tmpl, inp, settings)
     weights = np.array([settings.weights.get(e.kind, 0.3) for e in tmpl_els])
-    hyps = vote_pose(tmpl, inp, ti, ii, settings)
+    hyps = _strong(vote_pose(tmpl, inp, ti, ii, settings))
     best = None
     for h in hyps:
         pose, assignment, agree = refine(h.pose, tmpl, inp, ti, ii, weights, settings)

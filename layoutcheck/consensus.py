@@ -60,8 +60,12 @@ class SolverSettings:
     agree: float = 2.835
     #: Largest displacement still reported as "moved" rather than "missing" (25 mm).
     status_gate: float = 70.9
-    #: x/y scale difference from which the affine refinement is kept (0.15 %).
+    #: x/y scale difference from which the affine refinement is kept (0.15 %) ...
     anisotropy: float = 0.0015
+    #: ... when it also lowers the weighted squared residual by this share.
+    affine_gain: float = 0.25
+    #: Residual at which an element's weight in the refinement is halved (0.5 mm).
+    robust_scale: float = 1.42
     #: Weight of each kind in the least-squares refinement: boxes and marks are located to a
     #: fraction of a pixel from four fitted rules; a rule's centre only across it; text roughly.
     weights: dict = field(default_factory=lambda: {
@@ -431,9 +435,11 @@ def fit_pose(src: np.ndarray, dst: np.ndarray, w: np.ndarray, settings: SolverSe
     aff = Pose.from_pairs(src, dst, "affine", w)
     if not aff:
         return sim
-    if abs(aff.scale_x / aff.scale_y - 1.0) > settings.anisotropy or abs(aff.shear_deg) > 0.1:
-        return aff
-    return sim
+    if abs(aff.scale_x / aff.scale_y - 1.0) <= settings.anisotropy and abs(aff.shear_deg) <= 0.1:
+        return sim
+    ws = float((w * sim.residuals(src, dst) ** 2).sum())
+    wa = float((w * aff.residuals(src, dst) ** 2).sum())
+    return aff if wa < (1.0 - settings.affine_gain) * ws else sim
 
 
 def refine(pose: Pose, tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarray,
@@ -453,10 +459,14 @@ def refine(pose: Pose, tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: 
         res = np.hypot(*(pred[got] - inp.centers[assignment[got]]).T)
         # Agreeing set: within the gate now, the tolerance at the end (shrinking schedule).
         lim = max(gate * (0.5 ** r), settings.agree * 2.0)
-        use = np.flatnonzero(got)[res <= lim]
+        keep = res <= lim
+        use = np.flatnonzero(got)[keep]
         if len(use) < 2:
             return pose, assignment, agree
-        new = fit_pose(tmpl.centers[use], inp.centers[assignment[use]], weights[use], settings)
+        # Cauchy reweighting after the first round: an element a little off its place (still
+        # within tolerance) must not pull the page pose towards it.
+        w = weights[use] if r == 0 else weights[use] / (1.0 + (res[keep] / settings.robust_scale) ** 2)
+        new = fit_pose(tmpl.centers[use], inp.centers[assignment[use]], w, settings)
         if new is None:
             return pose, assignment, agree
         moved = float(np.abs(new.apply(tmpl.centers) - pred).max())

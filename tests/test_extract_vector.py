@@ -141,3 +141,28 @@ def test_labels_fields_and_marks(tmp_path):
     (mark,) = [e for e in pe.elements if e.kind == "mark"]
     assert mark.frame == pytest.approx((20.0, A4[1] - 34, 34.0, A4[1] - 20), abs=0.01)
     assert MM > 2.83  # 1 mm is 2.8346 pt (1 in = 25.4 mm = 72 pt)
+
+
+def test_mediabox_origin_other_than_zero(tmp_path):
+    from pypdf import PdfReader, PdfWriter
+    from pypdf.generic import RectangleObject
+    from reportlab.pdfgen import canvas
+
+    src = tmp_path / "src.pdf"
+    c = canvas.Canvas(str(src), pagesize=A4, invariant=1)
+    c.rect(100, 700, 200, 50)
+    c.showPage()
+    c.save()
+    reader = PdfReader(str(src))
+    w = PdfWriter()
+    page = reader.pages[0]
+    page.mediabox = RectangleObject([50, 60, A4[0], A4[1]])
+    w.add_page(page)
+    out = tmp_path / "mb.pdf"
+    with open(out, "wb") as fh:
+        w.write(fh)
+    (pe,) = extracted(out)
+    # Visible top-left is (50, 841.89) in user space: x 100 -> 50, top = 841.89 - 750.
+    (box,) = [e for e in pe.elements if e.kind == "box"]
+    assert box.frame == pytest.approx((50.0, A4[1] - 750, 250.0, A4[1] - 700), abs=0.01)
+    assert (pe.width, pe.height) == pytest.approx((A4[0] - 50, A4[1] - 60))

@@ -58,16 +58,12 @@ def run_demo(out_dir: Path, echo: Callable[[str], None] = print) -> int:
     wrong = [(k, v, got.get(k)) for k, v in truth.items() if got.get(k) != v]
     echo("")
     echo(f"records: {jsonl}")
-    report = out_dir / "report.html"
-    try:
-        from .report import write_report
-    except ImportError:
-        write_report = None
-    if write_report is not None:
-        from .verdict import Tolerances
+    from .report import write_report
+    from .verdict import Tolerances
 
-        write_report(report, records, templates, Tolerances(), base_dir=samples)
-        echo(f"report:  {report}")
+    report = out_dir / "report.html"
+    write_report(report, records, templates, Tolerances(), base_dir=samples)
+    echo(f"report:  {report}")
     echo(f"verdicts as planted: {len(truth) - len(wrong)} of {len(truth)}")
     for (src, page), want, have in wrong:
         echo(f"  {src} page {page}: planted {want}, got {have}")

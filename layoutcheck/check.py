@@ -80,7 +80,8 @@ def learn(references: Sequence[str], name: str | None = None, pages: set[int] | 
 
         from .zones import with_zones
 
-        return with_zones(learn_from_samples(refs, name=name, pages=pages, limits=limits, section_names=section_names))
+        return with_zones(learn_from_samples(refs, name=name, pages=pages, limits=limits, section_names=section_names,
+                                             with_raster=with_raster))
     ref = refs[0]
     out_pages: list[TemplatePage] = []
     for page in read_pages(ref, limits, pages):

@@ -1,0 +1,189 @@
+"""Normalised page images: an input page resampled into its template's frame.
+
+The turn, scale and shift the pose measured are taken out, so a zone's frame in template points
+is also its place on the normalised image (times ``dpi / 72``), whatever the scan did.
+
+Pixel convention (as in :mod:`layoutcheck.extract.raster`): pixel ``(col, row)`` covers
+``[col, col + 1) x [row, row + 1)``; a continuous pixel coordinate ``p`` is ``p * 72 / dpi``
+points. An output pixel goes to template points, through the pose to input points, then to input
+pixels; OpenCV puts pixel centres at integers, so the map is shifted by half a pixel on both
+sides before ``cv2.warpAffine`` samples it.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import cv2
+import numpy as np
+
+from .elements import POINTS_PER_INCH
+from .pose import Pose
+
+#: Resolution at which a born-digital input page is rendered when no other is asked for
+#: (200 dpi: common practice for office scans).
+VECTOR_DPI = 200.0
+FORMATS = ("png", "tiff")
+
+
+@dataclass(frozen=True)
+class Normalised:
+    """A normalised page image: grey ``uint8`` (0 black), its dpi and whether it is bitonal."""
+
+    image: np.ndarray
+    dpi: float
+    bitonal: bool
+
+
+def scale_matrix(factor: float) -> np.ndarray:
+    """3 x 3 matrix multiplying both coordinates by ``factor``."""
+    return np.diag([factor, factor, 1.0])
+
+
+def output_to_input_px(pose: Pose, input_dpi: float, output_dpi: float) -> np.ndarray:
+    """3 x 3 map from continuous output pixels to continuous input pixels.
+
+    ``output px -> template points (x 72/dpi_out) -> input points (pose) -> input px (x dpi_in/72)``.
+    """
+    return scale_matrix(input_dpi / POINTS_PER_INCH) @ pose.matrix @ scale_matrix(POINTS_PER_INCH / output_dpi)
+
+
+def to_centre_convention(m: np.ndarray) -> np.ndarray:
+    """A 2 x 3 map between continuous pixel coordinates, in the pixel-centre convention.
+
+    With ``x_c = x - 0.5`` on both sides: ``M_c = T(-0.5) M T(+0.5)``.
+    """
+    m = np.asarray(m, dtype=float)[:2]
+    out = m.copy()
+    out[:, 2] = m[:, :2] @ np.array([0.5, 0.5]) + m[:, 2] - 0.5
+    return out
+
+
+def output_size(template_size_pt: tuple[float, float], dpi: float) -> tuple[int, int]:
+    """``(width, height)`` in pixels of the template page at ``dpi``."""
+    w, h = template_size_pt
+    return max(1, int(round(w * dpi / POINTS_PER_INCH))), max(1, int(round(h * dpi / POINTS_PER_INCH)))
+
+
+def resample(image: np.ndarray, out_to_in: np.ndarray, size: tuple[int, int], bitonal: bool = False,
+             interpolation: str = "cubic") -> np.ndarray:
+    """Sample ``image`` at ``out_to_in`` (continuous output px -> continuous input px).
+
+    Parameters
+    ----------
+    image : (H, W) uint8 array
+        Grey input, 0 black .. 255 white; outside it is white paper.
+    out_to_in : (3, 3) or (2, 3) array
+    size : (width, height)
+        Output size in pixels.
+    bitonal : bool
+        Keep a black-and-white input black and white: bilinear, then threshold at 128.
+    interpolation : {"cubic", "linear"}
+        For grey input.
+
+    Returns
+    -------
+    (height, width) uint8 array
+
+    Notes
+    -----
+    When the output is much coarser than the input (more than 1.5 input pixels per output pixel)
+    the input is first reduced by area averaging, so thin rules do not alias away.
+    """
+    m = np.vstack([np.asarray(out_to_in, dtype=float)[:2], [0.0, 0.0, 1.0]])
+    img = np.ascontiguousarray(image, dtype=np.uint8)
+    step = float(np.sqrt(abs(np.linalg.det(m[:2, :2]))))  # input px per output px
+    if step > 1.5:
+        h, w = img.shape
+        nw, nh = max(1, int(round(w / step))), max(1, int(round(h / step)))
+        img = cv2.resize(img, (nw, nh), interpolation=cv2.INTER_AREA)
+        m = np.diag([nw / w, nh / h, 1.0]) @ m
+    if interpolation not in ("cubic", "linear"):
+        raise ValueError(f"unknown interpolation {interpolation!r}: use 'cubic' or 'linear'")
+    flags = cv2.INTER_LINEAR if (bitonal or interpolation == "linear") else cv2.INTER_CUBIC
+    out = cv2.warpAffine(img, to_centre_convention(m), (int(size[0]), int(size[1])),
+                         flags=flags | cv2.WARP_INVERSE_MAP, borderMode=cv2.BORDER_CONSTANT, borderValue=255)
+    if bitonal:
+        out = np.where(out >= 128, 255, 0).astype(np.uint8)
+    return out
+
+
+def normalise_image(image: np.ndarray, input_dpi: float, pose: Pose, template_size_pt: tuple[float, float],
+                    output_dpi: float | None = None, bitonal: bool = False) -> Normalised:
+    """Resample an input page image into the template's frame.
+
+    Parameters
+    ----------
+    image : (H, W) uint8 array
+        The input page at ``input_dpi``.
+    pose : Pose
+        Template points -> input points, as measured.
+    template_size_pt : (width, height)
+        Size of the template page, points: the output covers exactly it.
+    output_dpi : float, optional
+        Default: ``input_dpi``.
+    bitonal : bool
+        Input is black and white; the output stays so.
+    """
+    dpi = float(output_dpi or input_dpi)
+    m = output_to_input_px(pose, float(input_dpi), dpi)
+    out = resample(image, m, output_size(template_size_pt, dpi), bitonal)
+    return Normalised(out, dpi, bitonal)
+
+
+def write_image(norm: Normalised, path: str | os.PathLike, fmt: str = "png") -> str:
+    """Write a normalised image with its dpi: PNG, or TIFF (group 4 when bitonal, else LZW)."""
+    from PIL import Image
+
+    fmt = fmt.lower()
+    if fmt not in FORMATS:
+        raise ValueError(f"{path}: unknown image format {fmt!r}: use png or tiff")
+    im = Image.fromarray(norm.image, mode="L")
+    if norm.bitonal:
+        im = im.convert("1", dither=Image.Dither.NONE)
+    dpi = (norm.dpi, norm.dpi)
+    tmp = f"{path}.tmp"
+    if fmt == "png":
+        im.save(tmp, format="PNG", dpi=dpi, compress_level=3)  # 4x faster than the default, 10 % larger
+    else:
+        im.save(tmp, format="TIFF", dpi=dpi, compression="group4" if norm.bitonal else "tiff_lzw")
+    os.replace(tmp, path)
+    return str(path)
+
+
+def output_path(out_dir: str | os.PathLike, source: str, page: int, fmt: str = "png") -> Path:
+    """``<dir>/<input stem>_p<page>.<png|tiff>``."""
+    stem = Path(source).stem or "page"
+    return Path(out_dir) / f"{stem}_p{page}.{fmt.lower()}"
+
+
+def normalise_page(page, pose: Pose, template_size_pt: tuple[float, float], out_dir: str | os.PathLike,
+                   dpi: float | None = None, fmt: str = "png", limits=None) -> dict:
+    """Write the normalised image of one input page; the record's ``normalised`` field.
+
+    ``page`` is a :class:`~layoutcheck.sources.RasterPage` (resampled at its own dpi, or ``dpi``)
+    or a :class:`~layoutcheck.sources.VectorPage` (rendered at ``dpi`` or :data:`VECTOR_DPI`
+    first). Returns ``{"path", "dpi"}``, or ``{"path": None, "dpi", "error"}`` when the page
+    could not be rendered or written.
+    """
+    from .sources import PageError, RasterPage, ReadLimits, VectorPage, render_pdf_page, where
+
+    out_dpi = float(dpi) if dpi else None
+    try:
+        if isinstance(page, VectorPage):
+            out_dpi = out_dpi or VECTOR_DPI
+            raster = render_pdf_page(page.path or page.source, page.page, limits or ReadLimits(), out_dpi)
+            if isinstance(raster, PageError):
+                return {"path": None, "dpi": out_dpi, "error": raster.message}
+        elif isinstance(page, RasterPage):
+            raster = page
+        else:
+            return {"path": None, "dpi": out_dpi, "error": f"{where(page.source, page.page)}: no image to normalise"}
+        norm = normalise_image(raster.image, raster.dpi, pose, template_size_pt, out_dpi, bool(raster.bitonal))
+        os.makedirs(out_dir, exist_ok=True)
+        path = write_image(norm, output_path(out_dir, page.source, page.page, fmt), fmt)
+    except (OSError, ValueError, cv2.error) as exc:
+        return {"path": None, "dpi": out_dpi, "error": f"{where(page.source, page.page)}: normalised image not written ({' '.join(str(exc).split())})"}
+    return {"path": path, "dpi": norm.dpi}

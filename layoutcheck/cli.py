@@ -140,6 +140,73 @@ def make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, ele
         raise click.UsageError(str(exc)) from None
 
 
+def handoff_options(f):
+    """``--zones``, ``--normalise DIR``, ``--normalise-dpi``, ``--normalise-format``, passed on as
+    one ``handoff`` dict of :class:`~layoutcheck.check.CheckSettings` fields."""
+    import functools
+
+    @functools.wraps(f)
+    def inner(*args, zones, normalise_dir, normalise_dpi, normalise_format, **kwargs):
+        handoff = {"zones": bool(zones), "normalise_dir": normalise_dir, "normalise_dpi": normalise_dpi,
+                   "normalise_format": normalise_format.lower()}
+        return f(*args, handoff=handoff, **kwargs)
+
+    inner = click.option("--normalise-format", type=click.Choice(["png", "tiff"], case_sensitive=False), default="png", show_default=True,
+                         help="Format of normalised page images (the dpi is stored in the file).")(inner)
+    inner = click.option("--normalise-dpi", type=click.FloatRange(min=50, max=1200), default=None,
+                         help="Resolution of normalised images (default: the scan's; 200 for born-digital pages).")(inner)
+    inner = click.option("--normalise", "normalise_dir", type=click.Path(file_okay=False), default=None,
+                         help="Write each recognised page, turned, scaled and shifted into the template's frame, to this folder.")(inner)
+    inner = click.option("--zones", "zones", is_flag=True, help="Add to each record where the template's zones lie on the page (pixels for scans, points for PDFs).")(inner)
+    return inner
+
+
+def batch_options(f):
+    """``--jobs``, ``--resume``, ``--page-timeout``, ``--engine``, ``--scheduler``, passed on as
+    one ``batch`` dict (see :mod:`layoutcheck.batch`)."""
+    import functools
+
+    @functools.wraps(f)
+    def inner(*args, jobs, resume, page_timeout, engine, scheduler, **kwargs):
+        batch = {"jobs": jobs, "resume": resume, "page_timeout": page_timeout, "engine": engine, "scheduler": scheduler}
+        return f(*args, batch=batch, **kwargs)
+
+    inner = click.option("--scheduler", metavar="ADDRESS", help="Dask scheduler to run on, e.g. tcp://10.0.0.5:8786 (with --engine dask).")(inner)
+    inner = click.option("--engine", type=click.Choice(["local", "dask"]), default="local", show_default=True,
+                         help="Run pages in local worker processes, or on Dask distributed (a local cluster unless --scheduler).")(inner)
+    inner = click.option("--page-timeout", type=click.FloatRange(min=0, min_open=True), default=None, metavar="SECONDS",
+                         help="Most seconds one page may take; its worker is then replaced and the page gets an error record.")(inner)
+    inner = click.option("--resume", is_flag=True, help="Continue an interrupted run: keep the records in --json FILE, check only the pages not there.")(inner)
+    inner = click.option("-j", "--jobs", type=click.IntRange(min=1), default=1, show_default=True, help="Pages checked at once, in worker processes.")(inner)
+    return inner
+
+
+def _progress_bar():
+    """A one-line progress bar on standard error, only when it is a terminal."""
+    stream = sys.stderr
+    if not stream.isatty():
+        return None, lambda: None
+    state = {"last": 0.0}
+
+    def show(done: int, total: int) -> None:
+        import time as _time
+
+        now = _time.monotonic()
+        if now - state["last"] < 0.1 and done < total:
+            return
+        state["last"] = now
+        width = 30
+        filled = int(width * done / total) if total else 0
+        stream.write(f"\r[{'#' * filled}{'.' * (width - filled)}] {done}/{total} pages")
+        stream.flush()
+
+    def end() -> None:
+        stream.write("\n")
+        stream.flush()
+
+    return show, end
+
+
 @main.command()
 @click.argument("template", type=click.Path(exists=True))
 @click.argument("inputs", nargs=-1, required=True)
@@ -152,34 +219,49 @@ def make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, ele
 @click.option("--also", "more_templates", multiple=True, type=click.Path(exists=True), help="A further template (file or folder) to choose from.")
 @tolerance_options
 @click.option("-q", "--quiet", is_flag=True, help="No summary table.")
+@handoff_options
+@batch_options
 def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max_pixels, more_templates,
-           max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, quiet):
-    """Check INPUT files (PDF, PNG, JPEG, TIFF) against TEMPLATE (a file or a folder of templates)."""
-    from .check import CheckSettings, check_files
+           max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, quiet,
+           handoff, batch):
+    """Check INPUT files (PDF, PNG, JPEG, TIFF) against TEMPLATE (a file or a folder of templates).
+
+    INPUTS are files, folders (searched recursively), globs, or '-' for a list of paths on
+    standard input. Each page gets one JSON Lines record, in input and page order.
+    """
+    from .batch import BatchOptions, expand_inputs, run_batch
+    from .check import CheckSettings
 
     templates = load_templates([template, *more_templates])
     tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support)
-    settings = CheckSettings(tolerances=tol)
+    settings = CheckSettings(tolerances=tol, **handoff)
     limits = ReadLimits(max_pixels=max_pixels, max_pages=max_pages, dpi=dpi, password=password)
-    sink = _open_sink(json_out)
-    records = []
+    if batch["resume"] and (not json_out or json_out == "-"):
+        raise click.UsageError("--resume needs --json FILE (the run's output file)")
+    if batch["scheduler"] and batch["engine"] != "dask":
+        raise click.UsageError("--scheduler needs --engine dask")
+    files = expand_inputs(inputs)
+    if not files:
+        raise click.UsageError("no input files given")
     try:
-        for rec in check_files(list(inputs), templates, settings, limits):
-            records.append(rec)
-            if sink is not None:
-                sink.write(json.dumps(rec, ensure_ascii=False) + "\n")
-                sink.flush()
+        options = BatchOptions(jobs=batch["jobs"], page_timeout=batch["page_timeout"], engine=batch["engine"],
+                               scheduler=batch["scheduler"], resume=batch["resume"], keep_records=bool(report_out) or not quiet)
+    except ValueError as exc:
+        raise click.UsageError(str(exc)) from None
+    show, end = _progress_bar() if not quiet else (None, lambda: None)
+    try:
+        result = run_batch(files, templates, settings, limits, output=json_out, options=options, progress=show)
     finally:
-        if sink is not None and sink is not sys.stdout:
-            sink.close()
+        if show is not None:
+            end()
+    records = result.records
     if report_out:
         _write_report(report_out, records, templates, tol)
     out = click.get_text_stream("stderr") if json_out == "-" else click.get_text_stream("stdout")
-    if not quiet:
-        click.echo(summary_table(records), file=out)
-    elif records:
-        click.echo(counts_line(records), file=out)
-    sys.exit(EXIT_PASS if records and all(r["verdict"] == "pass" for r in records) else EXIT_FLAGGED)
+    if not quiet and records:
+        click.echo("\n".join(summary_table(records).split("\n")[:-1]), file=out)
+    click.echo(result.summary(), file=out)
+    sys.exit(EXIT_PASS if result.all_pass else EXIT_FLAGGED)
 
 
 def _open_sink(json_out):

@@ -149,6 +149,9 @@ class Document:
     def page(self, n: int) -> Page:  # pragma: no cover - overridden
         return PageError(self.source, n, f"{where(self.source, n)}: no such page")
 
+    def release(self) -> None:
+        """Let go of the page last taken (its caches); the next :meth:`page` does it anyway."""
+
     def close(self) -> None:
         """Release the file; safe to call twice."""
 
@@ -308,6 +311,8 @@ class _PdfDocument(Document):
         self._limits = limits
         self._open_page = None
         self._pdfium = None
+        self._walker = None
+        self._seen: list = []  # pdfminer page objects walked so far (small)
 
     @classmethod
     def open(cls, source: str, limits: ReadLimits, pages: set[int] | None) -> Document:
@@ -321,7 +326,9 @@ class _PdfDocument(Document):
                                                     else "encrypted; give --password"))
             return _failed(source, f"damaged PDF ({_one_line(exc)})")
         try:
-            count = len(pdf.pages)
+            count = _pdfium_count(source, limits)
+            if count is None:
+                count = len(pdf.pages)
         except Exception as exc:
             with contextlib.suppress(Exception):
                 pdf.close()
@@ -334,26 +341,41 @@ class _PdfDocument(Document):
             return _failed(source, "PDF has no pages (empty or broken page tree)")
         return cls(source, _numbers(source, count, limits, pages), pdf, limits)
 
-    def _release(self) -> None:
+    def release(self) -> None:
         if self._open_page is not None:
             with contextlib.suppress(Exception):
                 self._open_page.close()
             self._open_page = None
 
     def page(self, n: int) -> Page:
-        self._release()
+        self.release()
         try:
-            pl = self._pdf.pages[n - 1]
+            pl = self._plumber_page(n)
             self._open_page = pl
             width, height, rot = _display_size(pl)
             if is_scanned_page(pl):
                 dpi = _image_dpi(pl, width)
-                self._release()
+                self.release()
                 return self._render(n, dpi)
             return VectorPage(self.source, n, width, height, pl, rot, self.source)
         except Exception as exc:
-            self._release()
+            self.release()
             return PageError(self.source, n, f"{where(self.source, n)}: damaged page ({_one_line(exc)})")
+
+    def _plumber_page(self, n: int):
+        """Page ``n``, walking the page tree only as far as needed (a long file costs no more
+        than its pages read)."""
+        import pdfplumber.page
+        from pdfminer.pdfpage import PDFPage
+
+        if self._walker is None:
+            self._walker = PDFPage.create_pages(self._pdf.doc)
+        while len(self._seen) < n:
+            obj = next(self._walker, None)
+            if obj is None:
+                raise IndexError(f"the page tree holds {len(self._seen)} pages")
+            self._seen.append(obj)
+        return pdfplumber.page.Page(self._pdf, self._seen[n - 1], page_number=n)
 
     def _render(self, n: int, dpi: float) -> Page:
         import pypdfium2 as pdfium
@@ -366,12 +388,33 @@ class _PdfDocument(Document):
         return _render_page(self._pdfium, self.source, n, self._limits, dpi)
 
     def close(self) -> None:
-        self._release()
-        for obj in (self._pdfium, self._pdf):
-            if obj is not None:
-                with contextlib.suppress(Exception):
-                    obj.close()
+        self.release()
+        pdf = self._pdf
+        if self._pdfium is not None:
+            with contextlib.suppress(Exception):
+                self._pdfium.close()
+        if pdf is not None:
+            with contextlib.suppress(Exception):
+                # pdfplumber's own close() walks every page first; we never built its page list.
+                if not hasattr(pdf, "_pages") and getattr(pdf, "stream_is_external", True) is False:
+                    pdf.stream.close()
+                else:
+                    pdf.close()
         self._pdfium = self._pdf = None
+
+
+def _pdfium_count(source: str, limits: ReadLimits) -> int | None:
+    """Page count from pypdfium2, which reads it without walking the page tree; None if it cannot."""
+    import pypdfium2 as pdfium
+
+    try:
+        doc = pdfium.PdfDocument(source, password=limits.password)
+    except Exception:
+        return None
+    try:
+        return len(doc)
+    finally:
+        doc.close()
 
 
 def _display_size(pl) -> tuple[float, float, int]:

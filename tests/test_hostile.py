@@ -1,0 +1,259 @@
+"""Hostile and broken input: each bad file yields a clean record naming it, and the batch goes on."""
+
+from __future__ import annotations
+
+import shutil
+import struct
+import zlib
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from layoutcheck.batch import BatchOptions, run_batch
+from layoutcheck.check import check_page, learn
+from layoutcheck.sources import ReadLimits, read_pages
+
+SAMPLES = Path(__file__).resolve().parents[1] / "sample_forms"
+EXACT = SAMPLES / "inputs" / "101_exact.pdf"
+
+
+@pytest.fixture(scope="module")
+def templates():
+    return [learn([str(SAMPLES / "references" / "KBH-101_vessel_arrival.pdf")])]
+
+
+def records(path, templates, limits=ReadLimits()):
+    return [check_page(p, templates) for p in read_pages(path, limits)]
+
+
+def only_error(path, templates, limits=ReadLimits()):
+    (rec,) = records(path, templates, limits)
+    assert rec["verdict"] == "error" and rec["error"] == rec["findings"][0]["message"]
+    assert "\n" not in rec["error"] and Path(path).name in rec["error"]
+    return rec
+
+
+# -- makers ---------------------------------------------------------------------------------------
+def png_chunk(kind: bytes, data: bytes) -> bytes:
+    # PNG chunk layout: length, type, data, CRC-32 over type and data (PNG specification, ISO/IEC 15948).
+    return struct.pack(">I", len(data)) + kind + data + struct.pack(">I", zlib.crc32(kind + data) & 0xFFFFFFFF)
+
+
+def png_header_only(path: Path, width: int, height: int) -> Path:
+    """A PNG that declares width x height (8-bit grey) but carries one tiny IDAT."""
+    sig = b"\x89PNG\r\n\x1a\n"  # the PNG signature (ISO/IEC 15948)
+    ihdr = struct.pack(">IIBBBBB", width, height, 8, 0, 0, 0, 0)
+    path.write_bytes(sig + png_chunk(b"IHDR", ihdr) + png_chunk(b"IDAT", zlib.compress(b"\x00" * 16)) + png_chunk(b"IEND", b""))
+    return path
+
+
+def rendered_101(dpi=100) -> np.ndarray:
+    from layoutcheck.sources import render_page_image
+
+    return render_page_image(str(EXACT), 1, dpi)
+
+
+def save_image(path: Path, arr: np.ndarray, dpi=100, **kw) -> Path:
+    from PIL import Image
+
+    Image.fromarray(arr).save(path, dpi=(dpi, dpi), **kw)
+    return path
+
+
+def corrupt_tiff(path: Path) -> Path:
+    """Three frames of a 100 dpi scan; the second frame's compressed strips are overwritten."""
+    from PIL import Image
+
+    img = Image.fromarray(rendered_101())
+    img.save(path, save_all=True, append_images=[img.copy(), img.copy()], compression="tiff_deflate", dpi=(100, 100))
+    with Image.open(path) as im:
+        im.seek(1)
+        # TIFF 6.0 tags 273 StripOffsets and 279 StripByteCounts locate the frame's data.
+        strips = list(zip(im.tag_v2[273], im.tag_v2[279]))
+    data = bytearray(path.read_bytes())
+    for off, n in strips:
+        data[off + n // 4: off + n // 2] = b"\xa5" * (n // 2 - n // 4)  # garbage inside the deflate stream
+    path.write_bytes(bytes(data))
+    return path
+
+
+def blank_pdf(path: Path, pages: int) -> Path:
+    from pypdf import PdfWriter
+
+    w = PdfWriter()
+    for _ in range(pages):
+        w.add_blank_page(595.276, 841.89)  # A4 in points (ISO 216: 210 x 297 mm; 1 pt = 1/72 in)
+    with open(path, "wb") as fh:
+        w.write(fh)
+    return path
+
+
+def encrypted(path: Path, password="harbour") -> Path:
+    from pypdf import PdfWriter
+
+    w = PdfWriter(clone_from=str(EXACT))
+    w.encrypt(password)
+    with open(path, "wb") as fh:
+        w.write(fh)
+    return path
+
+
+def slow_pdf(path: Path, lines=40000) -> Path:
+    """A page of tens of thousands of drawn strokes: seconds to read, however fast the machine."""
+    from reportlab.pdfgen import canvas
+
+    rng = np.random.default_rng(1)
+    c = canvas.Canvas(str(path), pagesize=(595, 842))
+    for x, y, d in zip(rng.uniform(0, 590, lines), rng.uniform(0, 840, lines), rng.uniform(1, 5, lines)):
+        c.line(float(x), float(y), float(x + d), float(y))
+    c.showPage()
+    c.save()
+    return path
+
+
+# -- one case at a time ---------------------------------------------------------------------------
+def test_zero_byte_file(tmp_path, templates):
+    p = tmp_path / "empty.pdf"
+    p.write_bytes(b"")
+    assert "empty file (0 bytes)" in only_error(p, templates)["error"]
+
+
+def test_text_named_pdf(tmp_path, templates):
+    p = tmp_path / "notes.pdf"
+    p.write_text("Kestrel Bay Harbour Board: berth list for Tuesday\n")
+    assert "not a PDF" in only_error(p, templates)["error"]
+
+
+def test_truncated_pdf(tmp_path, templates):
+    p = tmp_path / "cut.pdf"
+    data = EXACT.read_bytes()
+    p.write_bytes(data[: len(data) // 3])
+    recs = records(p, templates)
+    assert recs and all(r["verdict"] == "error" and "cut.pdf" in r["error"] for r in recs)
+
+
+def test_broken_page_tree_zero_pages(tmp_path, templates):
+    rec = only_error(blank_pdf(tmp_path / "nopages.pdf", 0), templates)
+    assert rec["page"] is None and "no pages" in rec["error"]
+
+
+def test_encrypted_pdf_needs_password(tmp_path, templates):
+    p = encrypted(tmp_path / "locked.pdf")
+    assert "encrypted; give --password" in only_error(p, templates)["error"]
+    assert "password is wrong" in only_error(p, templates, ReadLimits(password="nope"))["error"]
+    (rec,) = records(p, templates, ReadLimits(password="harbour"))
+    assert rec["verdict"] == "pass" and rec["template"] == "KBH-101"
+
+
+def test_truncated_png_and_jpeg(tmp_path, templates):
+    img = rendered_101()
+    for name in ("cut.png", "cut.jpg"):
+        full = save_image(tmp_path / name, img)
+        data = full.read_bytes()
+        full.write_bytes(data[: len(data) // 2])
+        rec = only_error(full, templates)
+        assert rec["page"] == 1 and "damaged" in rec["error"]
+
+
+def test_tiff_with_corrupt_frame_keeps_the_good_ones(tmp_path, templates):
+    recs = records(corrupt_tiff(tmp_path / "three.tif"), templates)
+    assert [r["page"] for r in recs] == [1, 2, 3]
+    assert recs[1]["verdict"] == "error" and "three.tif page 2" in recs[1]["error"]
+    for r in (recs[0], recs[2]):
+        assert r["verdict"] != "error" and r["template"] == "KBH-101"
+
+
+def test_one_pixel_image(tmp_path, templates):
+    p = save_image(tmp_path / "dot.png", np.zeros((1, 1), np.uint8))
+    assert "1 x 1 pixels is too small" in only_error(p, templates)["error"]
+
+
+def test_huge_declared_image_is_refused_before_decoding(tmp_path, templates):
+    # 100000 x 100000 is 10 billion pixels: refused from the header alone.
+    rec = only_error(png_header_only(tmp_path / "huge.png", 100_000, 100_000), templates)
+    assert "pixel limit" in rec["error"]
+    # Under Pillow's own guard but over ours: our limit refuses it, by its number.
+    rec = only_error(png_header_only(tmp_path / "big.png", 5000, 5000), templates, ReadLimits(max_pixels=1_000_000))
+    assert "5000 x 5000 pixels is over the limit of 1,000,000 pixels" in rec["error"]
+
+
+def test_black_blank_and_photo_pages_are_unrecognised(tmp_path, templates):
+    """Decision: a page that was read but holds no form is "unrecognised", with one finding saying
+    why; "error" is kept for input that could not be read."""
+    shape = (1169, 827)  # A4 at 100 dpi: 297 x 210 mm / 25.4 mm per inch * 100 (ISO 216)
+    (black,) = records(save_image(tmp_path / "black.png", np.zeros(shape, np.uint8)), templates)
+    assert black["verdict"] == "unrecognised" and "almost all black" in black["findings"][0]["message"]
+    (white,) = records(save_image(tmp_path / "white.png", np.full(shape, 255, np.uint8)), templates)
+    assert white["verdict"] == "unrecognised" and "blank page" in white["findings"][0]["message"]
+    (vec,) = records(blank_pdf(tmp_path / "blank.pdf", 1), templates)
+    assert vec["verdict"] == "unrecognised" and "no lines, boxes or text" in vec["findings"][0]["message"]
+    from skimage import color, data  # scikit-image's bundled test photograph
+
+    photo = (color.rgb2gray(data.astronaut()) * 255).astype(np.uint8)
+    (ph,) = records(save_image(tmp_path / "photo.png", photo, dpi=72), templates)
+    assert ph["verdict"] == "unrecognised" and ph["support"] < 0.5 and ph["template"] is None
+    for r in (black, white, vec, ph):
+        assert r["error"] is None and r["pose"] is None
+
+
+def test_ten_thousand_pages_bounded_by_max_pages(tmp_path, templates):
+    p = blank_pdf(tmp_path / "long.pdf", 10_000)
+    recs = records(p, templates, ReadLimits(max_pages=3))
+    assert [r["page"] for r in recs] == [1, 2, 3, 4]
+    assert [r["verdict"] for r in recs] == ["unrecognised"] * 3 + ["error"]
+    assert "long.pdf page 4: file has 10000 pages, more than 3" in recs[3]["error"]
+
+
+def test_page_timeout_replaces_the_worker(tmp_path, templates):
+    slow = slow_pdf(tmp_path / "slow.pdf")
+    good = tmp_path / "good.pdf"
+    shutil.copy(EXACT, good)
+    out = tmp_path / "out.jsonl"
+    res = run_batch([str(good), str(slow), str(good)], templates, output=str(out),
+                    options=BatchOptions(jobs=1, page_timeout=1.5, keep_records=True))
+    verdicts = [r["verdict"] for r in res.records]
+    assert verdicts == ["pass", "error", "pass"]  # the third page ran on a fresh worker
+    assert "slow.pdf page 1: took longer than 1.5 s" in res.records[1]["error"]
+
+
+# -- all in one batch -----------------------------------------------------------------------------
+def test_all_hostile_inputs_in_one_batch(tmp_path, templates):
+    d = tmp_path / "in"
+    d.mkdir()
+    (d / "a_empty.pdf").write_bytes(b"")
+    (d / "b_text.pdf").write_text("not a form\n")
+    cut = EXACT.read_bytes()
+    (d / "c_cut.pdf").write_bytes(cut[: len(cut) // 3])
+    blank_pdf(d / "d_nopages.pdf", 0)
+    encrypted(d / "e_locked.pdf")
+    png = save_image(d / "f_cut.png", rendered_101())
+    png.write_bytes(png.read_bytes()[:5000])
+    corrupt_tiff(d / "g_three.tif")
+    save_image(d / "h_dot.png", np.zeros((1, 1), np.uint8))
+    png_header_only(d / "i_huge.png", 100_000, 100_000)
+    save_image(d / "j_black.png", np.zeros((600, 400), np.uint8))
+    blank_pdf(d / "k_long.pdf", 10_000)
+    shutil.copy(EXACT, d / "z_good.pdf")
+    out = tmp_path / "out.jsonl"
+    files = sorted(str(p) for p in d.iterdir())
+    res = run_batch(files, templates, limits=ReadLimits(max_pages=2), output=str(out),
+                    options=BatchOptions(jobs=2, keep_records=True))
+    got = [(Path(r["source"]).name, r["page"], r["verdict"]) for r in res.records]
+    assert got == [
+        ("a_empty.pdf", None, "error"), ("b_text.pdf", None, "error"),
+        *[g for g in got if g[0] == "c_cut.pdf"],
+        ("d_nopages.pdf", None, "error"), ("e_locked.pdf", None, "error"), ("f_cut.png", 1, "error"),
+        ("g_three.tif", 1, got[[g[:2] for g in got].index(("g_three.tif", 1))][2]), ("g_three.tif", 2, "error"),
+        ("g_three.tif", 3, "error"),
+        ("h_dot.png", 1, "error"), ("i_huge.png", None, "error"), ("j_black.png", 1, "unrecognised"),
+        ("k_long.pdf", 1, "unrecognised"), ("k_long.pdf", 2, "unrecognised"), ("k_long.pdf", 3, "error"),
+        ("z_good.pdf", 1, "pass"),
+    ]
+    assert [g for g in got if g[0] == "c_cut.pdf"] and all(g[2] == "error" for g in got if g[0] == "c_cut.pdf")
+    # max_pages=2 stops the TIFF after its second frame, with a record saying so.
+    assert got[[g[:2] for g in got].index(("g_three.tif", 1))][2] != "error"
+    assert len(out.read_text().splitlines()) == len(res.records)
+    for r in res.records:
+        if r["verdict"] == "error":
+            assert Path(r["source"]).name in r["error"]

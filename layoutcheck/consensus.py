@@ -7,8 +7,8 @@ orientation. The predictions vote (pose clustering / Hough voting, after Ballard
 
 1. rotation, from the change of orientation of every pair whose two sides have one;
 2. log-scale per template axis, from the change of size, for pairs that agree with the rotation;
-3. shift, with rotation and scale fixed, on a 2-D grid (four half-shifted grids, so a cluster is
-   never split by a bin edge).
+3. shift, with rotation and scale fixed, on a 2-D grid (two grids half a cell apart, so a cluster
+   is never split by a bin edge).
 
 A vote is counted once per *template element* per bin, so a row of fifty identical checkboxes
 cannot outvote the rest of the form. The winning cluster is refined by weighted least squares
@@ -36,6 +36,9 @@ from scipy.sparse.csgraph import connected_components
 from .elements import KIND_CLASS, MM_PER_POINT, Element
 from .pose import Pose
 
+#: Offsets (in cells) of the shift grids: two grids, the second shifted by half a cell on both
+#: axes, so every point lies within a quarter cell of some cell's centre.
+SHIFT_GRIDS = ((0.0, 0.0), (0.5, 0.5))
 CLASS_CODE = {c: i for i, c in enumerate(sorted(set(KIND_CLASS.values())))}
 LINE = CLASS_CODE["line"]
 TEXT = CLASS_CODE["text"]
@@ -74,6 +77,12 @@ class SolverSettings:
     })
     #: Residual section shift that makes a section "moved as one" needs this many elements.
     section_min_elements: int = 3
+    #: Pairs whose size change is this far (log) from a measured page scale do not vote.
+    scale_gate: float = 0.12
+    #: Most candidate pairs that vote; beyond it the most distinctive template elements vote.
+    vote_budget: int = 12000
+    #: Farthest a section may have moved as one and still be found (40 mm).
+    section_reach: float = 113.4
 
 
 @dataclass(frozen=True)
@@ -155,6 +164,14 @@ def _norm_text(t: str | None) -> str | None:
     return re.sub(r"\s+", " ", t).strip().lower() or None
 
 
+def _text_ids(a: list, b: list) -> tuple[np.ndarray, np.ndarray]:
+    """Integer ids for texts (-1 for none), shared by both lists, so texts compare as arrays."""
+    vocab: dict[str, int] = {}
+    ids_a = np.array([-1 if t is None else vocab.setdefault(t, len(vocab)) for t in a], dtype=np.int64)
+    ids_b = np.array([-1 if t is None else vocab.setdefault(t, len(vocab)) for t in b], dtype=np.int64)
+    return ids_a, ids_b
+
+
 def candidate_pairs(tmpl: FrameArrays, inp: FrameArrays, settings: SolverSettings = SolverSettings()) -> tuple[np.ndarray, np.ndarray]:
     """Template/input index pairs that could be the same element.
 
@@ -175,11 +192,8 @@ def candidate_pairs(tmpl: FrameArrays, inp: FrameArrays, settings: SolverSetting
             r = np.sqrt((isz[:, 0] * isz[:, 1])[None, :] / (ts[:, 0] * ts[:, 1])[:, None])
         ok = (r >= lo) & (r <= hi)
         if code == TEXT:
-            tt = [tmpl.texts[k] for k in ti]
-            it = [inp.texts[k] for k in ii]
-            if any(tt) and any(it):
-                same = np.array([[(a is None or b is None or a == b) for b in it] for a in tt], dtype=bool)
-                ok &= same
+            tt, it = _text_ids([tmpl.texts[k] for k in ti], [inp.texts[k] for k in ii])
+            ok &= (tt[:, None] < 0) | (it[None, :] < 0) | (tt[:, None] == it[None, :])
         a, b = np.nonzero(ok)
         ti_all.append(ti[a])
         ii_all.append(ii[b])
@@ -266,6 +280,178 @@ class Hypothesis:
     votes: int
 
 
+def _log_sizes(fa: FrameArrays) -> np.ndarray:
+    """One size per element: a rule's length, otherwise the square root of its area."""
+    return np.where(fa.classes == LINE, np.log(fa.sizes.max(axis=1)), 0.5 * np.log(fa.sizes[:, 0] * fa.sizes[:, 1]))
+
+
+def scale_spectrum(tmpl: FrameArrays, inp: FrameArrays, settings: SolverSettings = SolverSettings(),
+                   bin_width: float = 0.01, keep: int = 2) -> list[float]:
+    """Page scales at which the two sets' size spectra line up, best first.
+
+    The histograms of log element size (per kind class, smoothed) of template and input are
+    cross-correlated; a change of scale is a shift of the spectrum. This needs no
+    correspondences, so it gates them: only pairs whose own size change is near a peak vote.
+    """
+    lo, hi = np.log(settings.scale_range[0]), np.log(settings.scale_range[1])
+    lt, li = _log_sizes(tmpl), _log_sizes(inp)
+    if len(lt) == 0 or len(li) == 0:
+        return []
+    a = min(lt.min(), li.min()) - 0.1
+    b = max(lt.max(), li.max()) + 0.1
+    nb = int(np.ceil((b - a) / bin_width)) + 1
+    lags = np.arange(int(np.floor(lo / bin_width)), int(np.ceil(hi / bin_width)) + 1)
+    total = np.zeros(len(lags))
+    kern = np.exp(-0.5 * (np.arange(-4, 5) / 1.5) ** 2)
+    for code in np.unique(tmpl.classes):
+        ht = np.bincount(((lt[tmpl.classes == code] - a) / bin_width).astype(int), minlength=nb)[:nb].astype(float)
+        hi_ = np.bincount(((li[inp.classes == code] - a) / bin_width).astype(int), minlength=nb)[:nb].astype(float)
+        if ht.sum() == 0 or hi_.sum() == 0:
+            continue
+        ht = np.convolve(ht, kern, mode="same")
+        hi_ = np.convolve(hi_, kern, mode="same")
+        full = np.correlate(hi_, ht, mode="full")  # index k <-> lag k - (nb - 1)
+        idx = lags + nb - 1
+        ok = (idx >= 0) & (idx < len(full))
+        total[ok] += full[idx[ok]] / np.sqrt(ht.sum() * hi_.sum())
+    if not total.any():
+        return []
+    out = []
+    for k in np.argsort(-total):
+        if total[k] < 0.5 * total.max() or len(out) >= keep:
+            break
+        if any(abs(lags[k] * bin_width - v) < 0.05 for v in out):
+            continue
+        out.append(float(lags[k] * bin_width))
+    return out
+
+
+def voting_pairs(tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarray,
+                 settings: SolverSettings = SolverSettings()) -> tuple[np.ndarray, np.ndarray]:
+    """The pairs that vote: size change near a spectrum peak, within the vote budget.
+
+    Beyond the budget, template elements with the fewest candidates (the most distinctive:
+    their single-element votes are the least ambiguous) vote first.
+    """
+    if len(ti) == 0:
+        return ti, ii
+    peaks = scale_spectrum(tmpl, inp, settings)
+    if peaks:
+        ls = _log_sizes(inp)[ii] - _log_sizes(tmpl)[ti]
+        near = np.zeros(len(ti), bool)
+        for p in peaks:
+            near |= np.abs(ls - p) <= settings.scale_gate
+        ti, ii = ti[near], ii[near]
+    if len(ti) > settings.vote_budget:
+        counts = np.bincount(ti, minlength=len(tmpl.centers))
+        order = np.argsort(counts, kind="stable")
+        order = order[counts[order] > 0]
+        cum = np.cumsum(counts[order])
+        chosen = order[: max(int(np.searchsorted(cum, settings.vote_budget, side="right")), 1)]
+        sel = np.zeros(len(tmpl.centers), bool)
+        sel[chosen] = True
+        keep = sel[ti]
+        ti, ii = ti[keep], ii[keep]
+    return ti, ii
+
+
+def gated_pairs(tmpl: FrameArrays, inp: FrameArrays, settings: SolverSettings = SolverSettings()) -> tuple[np.ndarray, np.ndarray]:
+    """Voting pairs made directly, without forming every compatible pair first.
+
+    Same result as :func:`voting_pairs` on :func:`candidate_pairs` (up to the order of pairs),
+    but the inputs of each class are sorted by size, so each template element's candidates near
+    a spectrum peak are one contiguous run found by binary search, and the budget is applied to
+    the run lengths before any pair exists.
+    """
+    peaks = scale_spectrum(tmpl, inp, settings)
+    if not peaks:
+        return np.zeros(0, int), np.zeros(0, int)
+    lt, li = _log_sizes(tmpl), _log_sizes(inp)
+    runs_t, runs_start, runs_len, sorted_of = [], [], [], {}
+    for code in np.unique(tmpl.classes):
+        tix = np.flatnonzero(tmpl.classes == code)
+        iix = np.flatnonzero(inp.classes == code)
+        if len(iix) == 0:
+            continue
+        order = iix[np.argsort(li[iix], kind="stable")]
+        sorted_of[int(code)] = order
+        keys = li[order]
+        merged_lo = np.full(len(tix), np.inf)
+        merged_hi = np.full(len(tix), -np.inf)
+        for p in peaks:  # peaks are at least 0.05 apart; their windows may overlap: take the hull
+            merged_lo = np.minimum(merged_lo, lt[tix] + p - settings.scale_gate)
+            merged_hi = np.maximum(merged_hi, lt[tix] + p + settings.scale_gate)
+        a = np.searchsorted(keys, merged_lo, side="left")
+        b = np.searchsorted(keys, merged_hi, side="right")
+        runs_t.append(tix)
+        runs_start.append(np.column_stack([np.full(len(tix), code), a]))
+        runs_len.append(b - a)
+    if not runs_t:
+        return np.zeros(0, int), np.zeros(0, int)
+    t_all = np.concatenate(runs_t)
+    start = np.concatenate(runs_start)
+    length = np.concatenate(runs_len)
+    if length.sum() > settings.vote_budget:
+        order = np.argsort(length, kind="stable")
+        order = order[length[order] > 0]
+        cum = np.cumsum(length[order])
+        chosen = order[: max(int(np.searchsorted(cum, settings.vote_budget, side="right")), 1)]
+        t_all, start, length = t_all[chosen], start[chosen], length[chosen]
+    total = int(length.sum())
+    if total == 0:
+        return np.zeros(0, int), np.zeros(0, int)
+    rep_t = np.repeat(t_all, length)
+    rep_code = np.repeat(start[:, 0], length)
+    offsets = np.arange(total) - np.repeat(np.cumsum(length) - length, length)
+    pos = np.repeat(start[:, 1], length) + offsets
+    ii = np.empty(total, dtype=int)
+    for code, order in sorted_of.items():
+        m = rep_code == code
+        ii[m] = order[pos[m]]
+    ti = rep_t
+    text = tmpl.classes[ti] == TEXT
+    if text.any():
+        ta, tb = _text_ids([tmpl.texts[x] for x in ti[text]], [inp.texts[y] for y in ii[text]])
+        ok = np.ones(len(ti), bool)
+        ok[np.flatnonzero(text)] = (ta < 0) | (tb < 0) | (ta == tb)
+        ti, ii = ti[ok], ii[ok]
+    return ti, ii
+
+
+def spatial_pairs(pred: np.ndarray, tmpl: FrameArrays, inp: FrameArrays, radius: float, scale: float = 1.0,
+                  settings: SolverSettings = SolverSettings()) -> tuple[np.ndarray, np.ndarray]:
+    """Compatible pairs whose input element lies within ``radius`` of the predicted place.
+
+    Same kind class, size within the scale range of the expected size, and equal text where
+    both sides have text; found with k-d trees, so the cost grows with the elements, not with
+    their product.
+    """
+    from scipy.spatial import cKDTree
+
+    lo, hi = settings.scale_range
+    out_t, out_i = [], []
+    lt, li = _log_sizes(tmpl), _log_sizes(inp)
+    for code in np.unique(tmpl.classes):
+        tix = np.flatnonzero(tmpl.classes == code)
+        iix = np.flatnonzero(inp.classes == code)
+        if len(tix) == 0 or len(iix) == 0:
+            continue
+        sdm = cKDTree(pred[tix]).sparse_distance_matrix(cKDTree(inp.centers[iix]), radius, output_type="ndarray")
+        if len(sdm) == 0:
+            continue
+        a, b = tix[sdm["i"]], iix[sdm["j"]]
+        r = np.exp(li[b] - lt[a]) / scale
+        ok = (r >= lo) & (r <= hi)
+        if code == TEXT:
+            ta, tb = _text_ids([tmpl.texts[x] for x in a], [inp.texts[y] for y in b])
+            ok &= (ta < 0) | (tb < 0) | (ta == tb)
+        out_t.append(a[ok])
+        out_i.append(b[ok])
+    if not out_t:
+        return np.zeros(0, int), np.zeros(0, int)
+    return np.concatenate(out_t), np.concatenate(out_i)
+
+
 def vote_pose(tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarray,
               settings: SolverSettings = SolverSettings()) -> list[Hypothesis]:
     """Pose hypotheses from frame votes, best first.
@@ -283,6 +469,7 @@ def vote_pose(tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarra
         Each with a pose (template points -> input points) and the number of distinct template
         elements whose single-element prediction fell in the winning shift cell.
     """
+    ti, ii = voting_pairs(tmpl, inp, ti, ii, settings)
     if len(ti) == 0:
         return []
     pidx, prot = rotation_votes(tmpl, inp, ti, ii)
@@ -292,7 +479,7 @@ def vote_pose(tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarra
         order = np.argsort(-smooth)
         rotations = []
         for b in order:
-            if smooth[b] < 0.3 * smooth[order[0]] or len(rotations) >= settings.max_hypotheses:
+            if smooth[b] < 0.5 * smooth[order[0]] or len(rotations) >= settings.max_hypotheses:
                 break
             centre = -180.0 + (b + 0.5) * settings.rotation_bin_deg
             if any(abs(_circ_diff(np.array([centre]), r)[0]) < 10.0 for r in rotations):
@@ -363,7 +550,7 @@ def _hypothesis_for_rotation(tmpl, inp, ti, ii, pidx, prot, rot, settings) -> Hy
     shifts = inp.centers[i_i] - tmpl.centers[t_i] @ lin.T
     bw = settings.shift_bin
     best = (-1, None)
-    for off in ((0.0, 0.0), (0.5, 0.0), (0.0, 0.5), (0.5, 0.5)):
+    for off in SHIFT_GRIDS:
         q = np.floor(shifts / bw + np.array(off)).astype(np.int64)
         keys = (q[:, 0] + (1 << 20)) * (1 << 21) + (q[:, 1] + (1 << 20))
         uk, counts = _distinct_counts(keys, t_i)
@@ -442,15 +629,24 @@ def fit_pose(src: np.ndarray, dst: np.ndarray, w: np.ndarray, settings: SolverSe
     return aff if wa < (1.0 - settings.affine_gain) * ws else sim
 
 
-def refine(pose: Pose, tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarray,
+def refine(pose: Pose, tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray | None, ii: np.ndarray | None,
            weights: np.ndarray, settings: SolverSettings, usable: np.ndarray | None = None, rounds: int = 4):
-    """Alternate assignment and least squares; returns ``(pose, assignment, agreeing mask)``."""
+    """Alternate assignment and least squares; returns ``(pose, assignment, agreeing mask)``.
+
+    With ``ti``/``ii`` None, the pairs of each round are the compatible ones near the predicted
+    places (:func:`spatial_pairs`); otherwise the given candidate pairs.
+    """
+    def pairs(pred, gate, scale):
+        if ti is None:
+            return spatial_pairs(pred, tmpl, inp, gate, scale, settings)
+        return ti, ii
+
     gate = settings.refine_gate
     assignment = np.full(len(tmpl.centers), -1)
     agree = np.zeros(len(tmpl.centers), bool)
     for r in range(rounds):
         pred = pose.apply(tmpl.centers)
-        assignment = assign(pred, inp.centers, ti, ii, gate)
+        assignment = assign(pred, inp.centers, *pairs(pred, gate, pose.scale), gate)
         got = assignment >= 0
         if usable is not None:
             got &= usable
@@ -475,7 +671,7 @@ def refine(pose: Pose, tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: 
         if moved < 0.01 and r >= 1:
             break  # converged: no predicted place moved by a hundredth of a point
     pred = pose.apply(tmpl.centers)
-    assignment = assign(pred, inp.centers, ti, ii, settings.refine_gate)
+    assignment = assign(pred, inp.centers, *pairs(pred, settings.refine_gate, pose.scale), settings.refine_gate)
     got = assignment >= 0
     agree = np.zeros(len(pred), bool)
     agree[got] = np.hypot(*(pred[got] - inp.centers[assignment[got]]).T) <= settings.agree
@@ -487,6 +683,16 @@ def _strong(hyps: list[Hypothesis]) -> list[Hypothesis]:
     if not hyps:
         return hyps
     return [h for h in hyps if h.votes >= 0.5 * hyps[0].votes]
+
+
+def _most_assigned(hyps: list[Hypothesis], tmpl: FrameArrays, inp: FrameArrays, settings: SolverSettings) -> Hypothesis:
+    """The hypothesis under which most template elements find a partner near their place."""
+    def count(h):
+        pred = h.pose.apply(tmpl.centers)
+        a = assign(pred, inp.centers, *spatial_pairs(pred, tmpl, inp, settings.refine_gate, h.pose.scale, settings),
+                   settings.refine_gate)
+        return int((a >= 0).sum())
+    return max(hyps, key=count)
 
 
 def solve_correspondences(model_frames: FrameArrays, input_frames: FrameArrays, ti: np.ndarray, ii: np.ndarray,
@@ -513,17 +719,17 @@ def solve_correspondences(model_frames: FrameArrays, input_frames: FrameArrays, 
 
 
 # -- the page -------------------------------------------------------------------------------------
-def _size_ratio(tmpl: FrameArrays, inp: FrameArrays, t: int, i: int, pose: Pose) -> float:
-    """Found size over expected size; the component farther from 1 (rules: length only)."""
-    rot = -pose.rotation_deg  # internal, y-down
-    k = int(np.round(rot / 90.0)) % 4
+def size_ratios(tmpl: FrameArrays, inp: FrameArrays, t: np.ndarray, i: np.ndarray, pose: Pose) -> np.ndarray:
+    """Found size over expected size per pair; the component farther from 1 (rules: length only)."""
+    k = int(np.round(-pose.rotation_deg / 90.0)) % 4
     ts = tmpl.sizes[t] * np.array([pose.scale_x, pose.scale_y])
     if k % 2:
-        ts = ts[::-1]
+        ts = ts[:, ::-1]
     r = inp.sizes[i] / ts
-    if tmpl.classes[t] == LINE:
-        return float(r[int(np.argmax(ts))])
-    return float(r[int(np.argmax(np.abs(np.log(r))))])
+    longer = np.argmax(ts, axis=1)
+    worst = np.argmax(np.abs(np.log(r)), axis=1)
+    pick = np.where(tmpl.classes[t] == LINE, longer, worst)
+    return r[np.arange(len(t)), pick]
 
 
 def solve(template_elements, input_elements, sections=(), *, judged=None,
@@ -560,12 +766,14 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     if not inp_els:
         return Match(None, 0.0, _all_missing(tmpl_els, sections, judged), (), reason="no elements found on the page")
     tmpl, inp = FrameArrays.of(tmpl_els), FrameArrays.of(inp_els)
-    ti, ii = candidate_pairs(tmpl, inp, settings)
+    ti, ii = gated_pairs(tmpl, inp, settings)
     weights = np.array([settings.weights.get(e.kind, 0.3) for e in tmpl_els])
     hyps = _strong(vote_pose(tmpl, inp, ti, ii, settings))
+    if len(hyps) > 1:
+        hyps = [_most_assigned(hyps, tmpl, inp, settings)]
     best = None
     for h in hyps:
-        pose, assignment, agree = refine(h.pose, tmpl, inp, ti, ii, weights, settings)
+        pose, assignment, agree = refine(h.pose, tmpl, inp, None, None, weights, settings)
         score = float(agree[judged].sum()) + 0.01 * float(agree.sum())
         if best is None or score > best[0]:
             best = (score, pose, assignment, agree)
@@ -586,16 +794,18 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     sec_shift = np.zeros((len(sections), 2))
     sec_moved = np.zeros(len(sections), bool)
     sec_support = np.zeros(len(sections))
-    if len(ti):
-        resid = inv.apply(inp.centers[ii]) - tmpl.centers[ti]
+    # Pairs near where the page pose puts each element, as far as a section may have moved.
+    sti, sii = spatial_pairs(pose.apply(tmpl.centers), tmpl, inp, settings.section_reach, pose.scale, settings)
+    if len(sti):
+        resid = inv.apply(inp.centers[sii]) - tmpl.centers[sti]
         for s_i, s in enumerate(sections):
             members = np.flatnonzero((sec_of == s_i) & judged)
             if len(members) < settings.section_min_elements:
                 continue
-            sel = np.isin(ti, members)
+            sel = np.isin(sti, members)
             if not sel.any():
                 continue
-            off, count, zero_count = _section_vote(resid[sel], ti[sel], settings)
+            off, count, zero_count = _section_vote(resid[sel], sti[sel], settings)
             sec_support[s_i] = count / len(members)
             if (np.hypot(*off) > position_tol and count >= max(settings.section_min_elements, 0.6 * len(members))
                     and count > zero_count):
@@ -604,7 +814,7 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     if sec_moved.any():
         # Sections vote for the page: refit on the elements of sections that agree with it.
         usable = ~np.isin(sec_of, np.flatnonzero(sec_moved))
-        pose, assignment, agree = refine(pose, tmpl, inp, ti, ii, weights, settings, usable=usable, rounds=2)
+        pose, assignment, agree = refine(pose, tmpl, inp, None, None, weights, settings, usable=usable, rounds=2)
         inv = pose.inverse()
 
     # Final assignment under each element's own expected place (page pose + section shift).
@@ -612,10 +822,16 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     has_sec = sec_of >= 0
     shift_t[has_sec] = sec_shift[sec_of[has_sec]]
     pred = pose.apply(tmpl.centers + shift_t)
-    final = assign(pred, inp.centers, ti, ii, settings.status_gate,
-                   cost_extra=None)
+    fti, fii = spatial_pairs(pred, tmpl, inp, settings.status_gate, pose.scale, settings)
+    final = assign(pred, inp.centers, fti, fii, settings.status_gate)
     results = []
     ok_mask = np.zeros(n, bool)
+    got = np.flatnonzero(final >= 0)
+    ratios = np.full(n, np.nan)
+    offsets = np.full((n, 2), np.nan)
+    if len(got):
+        ratios[got] = size_ratios(tmpl, inp, got, final[got], pose)
+        offsets[got] = inv.apply(inp.centers[final[got]]) - tmpl.centers[got]
     for k, e in enumerate(tmpl_els):
         j = int(final[k])
         s_i = int(sec_of[k])
@@ -625,9 +841,9 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
                                          "missing", None, None, None, bool(judged[k]), moved_sec))
             continue
         # Offset in the template's axes, relative to the page pose (section shift included).
-        off = inv.apply(inp.centers[j][None])[0] - tmpl.centers[k]
+        off = offsets[k]
         own = off - shift_t[k]
-        ratio = _size_ratio(tmpl, inp, k, j, pose)
+        ratio = float(ratios[k])
         tol = position_tol + float(slack.get(e.id, 0.0))
         if np.hypot(*own) > tol:
             status = "moved"
@@ -659,7 +875,7 @@ def _section_vote(resid: np.ndarray, owners: np.ndarray, settings: SolverSetting
     bw = settings.shift_bin
     best = (0, np.zeros(2))
     zero_count = 0
-    for off in ((0.0, 0.0), (0.5, 0.0), (0.0, 0.5), (0.5, 0.5)):
+    for off in SHIFT_GRIDS:
         q = np.floor(resid / bw + np.array(off)).astype(np.int64)
         keys = (q[:, 0] + (1 << 20)) * (1 << 21) + (q[:, 1] + (1 << 20))
         uk, counts = _distinct_counts(keys, owners)

@@ -171,7 +171,7 @@ def batch_options(f):
         batch = {"jobs": jobs, "resume": resume, "page_timeout": page_timeout, "engine": engine, "scheduler": scheduler}
         return f(*args, batch=batch, **kwargs)
 
-    inner = click.option("--scheduler", metavar="ADDRESS", help="Dask scheduler to run on, e.g. tcp://10.0.0.5:8786 (with --engine dask).")(inner)
+    inner = click.option("--scheduler", metavar="ADDRESS", help="Dask scheduler to run on, e.g. tcp://scheduler-host:8786 (with --engine dask).")(inner)
     inner = click.option("--engine", type=click.Choice(["local", "dask"]), default="local", show_default=True,
                          help="Run pages in local worker processes, or on Dask distributed (a local cluster unless --scheduler).")(inner)
     inner = click.option("--page-timeout", type=click.FloatRange(min=0, min_open=True), default=None, metavar="SECONDS",

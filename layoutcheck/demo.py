@@ -40,6 +40,8 @@ def run_demo(out_dir: Path, echo: Callable[[str], None] = print) -> int:
         templates.append(t)
         echo(f"learned {t.name}: " + ", ".join(f"page {p.number} {len(p.elements)} elements" for p in t.pages))
     expected = json.loads((samples / "expected.json").read_text(encoding="utf-8"))
+    # Scanned inputs (simulated scans of the same forms), drawn by sample_forms/make_scans.py.
+    expected += json.loads((samples / "expected_scans.json").read_text(encoding="utf-8"))
     inputs = sorted({e["input"] for e in expected})
     records = []
     settings = CheckSettings()

@@ -80,7 +80,7 @@ class SolverSettings:
     #: Pairs whose size change is this far (log) from a measured page scale do not vote.
     scale_gate: float = 0.12
     #: Most candidate pairs that vote; beyond it the most distinctive template elements vote.
-    vote_budget: int = 12000
+    vote_budget: int = 6000
     #: Farthest a section may have moved as one and still be found (40 mm).
     section_reach: float = 113.4
 
@@ -593,6 +593,18 @@ def assign(pred: np.ndarray, inp_centers: np.ndarray, ti: np.ndarray, ii: np.nda
     ti, ii, cost = ti[~lone], ii[~lone], cost[~lone]
     if len(ti) == 0:
         return out
+    big = gate * 10.0 + 1.0
+    rt, rinv = np.unique(ti, return_inverse=True)
+    ct, cinv = np.unique(ii, return_inverse=True)
+    if len(rt) * len(ct) <= 250_000:
+        # The blocks are independent, so one solve of their union is the same optimum as one
+        # solve per block, without a Python loop over blocks.
+        mat = np.full((len(rt), len(ct)), big)
+        np.minimum.at(mat, (rinv, cinv), cost)
+        r, c = linear_sum_assignment(mat)
+        good = mat[r, c] < big
+        out[rt[r[good]]] = ct[c[good]]
+        return out
     g = coo_matrix((np.ones(len(ti)), (ti, n_t + ii)), shape=(n_t + n_i, n_t + n_i))
     ncomp, labels = connected_components(g, directed=False)
     comp = labels[ti]
@@ -600,7 +612,6 @@ def assign(pred: np.ndarray, inp_centers: np.ndarray, ti: np.ndarray, ii: np.nda
     ti, ii, cost, comp = ti[order], ii[order], cost[order], comp[order]
     starts = np.flatnonzero(np.r_[True, comp[1:] != comp[:-1]])
     ends = np.r_[starts[1:], len(comp)]
-    big = gate * 10.0 + 1.0
     for s, e in zip(starts, ends):
         rt, rinv = np.unique(ti[s:e], return_inverse=True)
         ct, cinv = np.unique(ii[s:e], return_inverse=True)

@@ -13,7 +13,6 @@ y down) to scan points.
 
 from __future__ import annotations
 
-import io
 import math
 import os
 from dataclasses import dataclass, field
@@ -115,7 +114,7 @@ def simulate_scan(
     page: int = 1,
     dpi: float = 300,
     rotation_deg: float = 0.0,
-    scale: tuple[float, float] = (1.0, 1.0),
+    scale: tuple[float, float] | float = (1.0, 1.0),
     shift_mm: tuple[float, float] = (0.0, 0.0),
     blur_sigma_px: float = 0.0,
     noise_sigma: float = 0.0,
@@ -140,7 +139,7 @@ def simulate_scan(
         Scan resolution; the image is ``round(paper size * dpi / 72)`` pixels.
     rotation_deg : float
         Turn of the content, counterclockwise as seen, about the paper's centre.
-    scale : (sx, sy)
+    scale : (sx, sy) or float
         Scale of the content along the template's x and y axes.
     shift_mm : (dx, dy)
         Shift of the content on the paper, mm, y down.
@@ -166,6 +165,8 @@ def simulate_scan(
     -------
     SimulatedScan
     """
+    if np.isscalar(scale):
+        scale = (float(scale), float(scale))  # type: ignore[arg-type]
     st = ScanSettings(page, float(dpi), float(rotation_deg), tuple(map(float, scale)), tuple(map(float, shift_mm)),
                       float(blur_sigma_px), float(noise_sigma), float(salt_pepper), jpeg_quality, bitonal_threshold,
                       bool(fill), bool(stamp), bool(edge_shadow), bool(punch_holes),
@@ -176,9 +177,10 @@ def simulate_scan(
     rdpi = dpi * os_
     rendered, page_pt = render_page(source_pdf, page, rdpi)
     paper = page_pt if paper_size_pt is None else tuple(paper_size_pt)
+    # The image holds the paper rounded to whole pixels; the pose is about the paper itself, so an
+    # unturned scan of a page on its own paper size has the identity pose.
     W, H = int(round(paper[0] * dpi / POINTS_PER_INCH)), int(round(paper[1] * dpi / POINTS_PER_INCH))
-    paper_px = (W * POINTS_PER_INCH / dpi, H * POINTS_PER_INCH / dpi)
-    pose = truth_pose(page_pt, paper_px, rotation_deg, scale, shift_mm)
+    pose = truth_pose(page_pt, paper, rotation_deg, scale, shift_mm)
     if fill:
         rendered = _draw_fill(rendered, source_pdf, page, rdpi, rng)
     # Continuous map: render px -> template points -> scan points -> oversampled scan px.
@@ -192,8 +194,8 @@ def simulate_scan(
     if stamp:
         img = _draw_stamp(img, dpi, rng)
     if punch_holes:
-        for fy in (0.5 - 40.0 / 297.0, 0.5 + 40.0 / 297.0):  # 80 mm apart (ISO 838, from memory)
-            c = (int(round(_px(12.0, dpi))), int(round(H * fy)))
+        for dy in (-40.0, 40.0):  # 80 mm apart, 12 mm from the edge, 6 mm across (ISO 838, from memory)
+            c = (int(round(_px(12.0, dpi))), int(round(H / 2.0 + _px(dy, dpi))))
             cv2.circle(img, c, int(round(_px(3.0, dpi))), 25.0, -1, lineType=cv2.LINE_AA)
     if edge_shadow:
         band = _px(6.0, dpi)
@@ -253,7 +255,7 @@ def _draw_fill(img: np.ndarray, source_pdf, page: int, rdpi: float, rng: np.rand
             n = int(max(8, (x1 - x0) / 3))
             xs = np.linspace(x0 + 3, x0 + 3 + (x1 - x0 - 6) * rng.uniform(0.4, 0.95), n)
             mid = (top + bottom) / 2
-            amp = (bottom - top) * rng.uniform(0.2, 0.55)
+            amp = (bottom - top) * rng.uniform(0.15, 0.35)  # writing stays mostly inside the box
             ys = mid + amp * np.sin(xs * rng.uniform(0.3, 0.9) + rng.uniform(0, 6)) + rng.normal(0, amp * 0.2, n)
             if rng.random() < 0.5:
                 ys[-1] = bottom + 2  # a stroke that runs onto the bottom border
@@ -273,9 +275,11 @@ def _draw_stamp(img: np.ndarray, dpi: float, rng: np.random.Generator) -> np.nda
     t = max(2, int(round(_px(0.8, dpi))))
     x0, y0 = int((cw - sw) / 2), int((ch - shh) / 2)
     cv2.rectangle(canvas, (x0, y0), (int(x0 + sw), int(y0 + shh)), 60, t, lineType=cv2.LINE_AA)
-    fs = shh / 60.0
-    cv2.putText(canvas, "KBH RECEIVED", (x0 + int(sw * 0.06), y0 + int(shh * 0.62)), cv2.FONT_HERSHEY_SIMPLEX,
-                fs, 60, max(1, t // 2 + 1), cv2.LINE_AA)
+    text, font, thick = "KBH RECEIVED", cv2.FONT_HERSHEY_SIMPLEX, max(1, t // 2 + 1)
+    (tw, th), _ = cv2.getTextSize(text, font, 1.0, thick)
+    fs = min(0.85 * sw / tw, 0.5 * shh / th)  # the text fits inside the frame
+    (tw, th), _ = cv2.getTextSize(text, font, fs, thick)
+    cv2.putText(canvas, text, (int(x0 + (sw - tw) / 2), int(y0 + (shh + th) / 2)), font, fs, 60, thick, cv2.LINE_AA)
     ang = float(rng.uniform(8, 25)) * (1 if rng.random() < 0.5 else -1)
     cx, cy = float(rng.uniform(0.3, 0.7) * w), float(rng.uniform(0.3, 0.7) * h)
     m = cv2.getRotationMatrix2D((cw / 2.0, ch / 2.0), ang, 1.0)
@@ -295,7 +299,10 @@ def save_scan(scans: SimulatedScan | Sequence[SimulatedScan], path: str | os.Pat
     path : path
     fmt : {"png", "jpeg", "tiff", "pdf"}, optional
         Default from the file's extension. TIFF is group-4 for bitonal scans, LZW for grey; PDF is
-        an image-only, scanner-style PDF with each page sized by the image's dpi.
+        an image-only, scanner-style PDF with each page sized by the image's dpi (grey pages JPEG
+        compressed at ``jpeg_quality``, as scanners write them).
+    jpeg_quality : int
+        Quality of JPEG files and of the grey pages of PDFs.
 
     Returns
     -------
@@ -333,5 +340,6 @@ def save_scan(scans: SimulatedScan | Sequence[SimulatedScan], path: str | os.Pat
             first, rest = first.convert("L"), [im.convert("L") for im in rest]
         first.save(path, format="TIFF", dpi=(dpi, dpi), compression=comp, save_all=True, append_images=rest)
     else:
-        first.save(path, format="PDF", resolution=float(dpi), save_all=True, append_images=rest)
+        # Pillow stores grey pages as JPEG (as scanners do) and bitonal ones as CCITT group 4.
+        first.save(path, format="PDF", resolution=float(dpi), save_all=True, append_images=rest, quality=jpeg_quality)
     return str(path)

@@ -42,7 +42,7 @@ from collections import Counter, defaultdict
 from dataclasses import dataclass, field
 from typing import Callable, Iterable, Sequence
 
-from .check import CheckSettings, check_page, error_record
+from .check import CheckSettings, check_page, error_record, handoff_fields
 from .sources import KNOWN_EXTENSIONS, PageError, ReadLimits, open_document, where
 from .template import Template
 from .verdict import SEVERITY, VERDICTS, Finding
@@ -366,6 +366,8 @@ class _Order:
         self.held = []
 
     def _write(self, rec: dict) -> None:
+        # Every record carries the same fields, error records included (zones, normalised).
+        handoff_fields(rec, self._settings)
         self.sink.write(rec)
         self.result.counts[rec["verdict"]] += 1
         self.result.written += 1
@@ -376,6 +378,7 @@ class _Order:
             self.progress(self.pages_done, self.pages_total)
 
     _keep = False
+    _settings = CheckSettings()
 
 
 # -- engines --------------------------------------------------------------------------------------
@@ -396,6 +399,7 @@ def run_batch(inputs: Sequence[str], templates: Sequence[Template], settings: Ch
     result = BatchResult()
     order = _Order(files, list(templates), sink, done, result, progress)
     order._keep = options.keep_records
+    order._settings = settings
     try:
         if options.engine == "dask":
             _run_dask(files, templates, settings, limits, options, order)

@@ -58,8 +58,9 @@ def main() -> None:
 
 
 def _entry(name, src, page, verdict, scan, note):
-    form = Path(src).name.split("_")[0]
-    template = {"101": "KBH-101"}.get(form, form) if form.startswith("KBH") else "KBH-101"
+    stem = Path(src).name.split("_")[0]
+    # References are named KBH-xxx_...; derived inputs xxx_...: both name form KBH-xxx.
+    template = stem if stem.startswith("KBH-") else f"KBH-{stem}"
     return {
         "input": f"inputs/{name}", "template": template, "page": page, "verdict": verdict,
         "rotation_deg": round(scan.pose.rotation_deg, 4), "scale": round(scan.pose.scale, 5),

@@ -1,0 +1,46 @@
+"""Gather the benchmark results into ``docs/benchmarks.md``.
+
+Each benchmark writes its own tables to ``bench/results/<name>.md`` (every ratio in them is
+measured side by side in one run of that benchmark); this script puts them in one document, in a
+fixed order, under a short preface. Run it after the benchmarks:
+
+    python bench/bench_consensus.py && python bench/bench_raster.py && python bench/bench_scans.py \\
+      && python bench/bench_normalise.py && python bench/bench_batch.py && python bench/collect.py
+"""
+
+from __future__ import annotations
+
+import platform
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+ORDER = ("consensus", "raster", "scans", "normalise", "batch")
+PREFACE = """# Benchmarks
+
+Speed, memory and accuracy targets are met here, never in timed unit tests. Each section below is
+written by one script in `bench/`; every ratio in a section was measured side by side in one run
+of that script, on the project's usual machine: 2 cores and 24 GiB, no GPU, shared with other
+work while these runs were made, so absolute times carry that noise. Regenerate with the commands
+in `bench/collect.py`.
+
+Machine of the last collection: {machine}, Python {python}.
+"""
+
+
+def main() -> None:
+    parts = [PREFACE.format(machine=platform.machine(), python=platform.python_version())]
+    results = ROOT / "bench" / "results"
+    for name in ORDER:
+        f = results / f"{name}.md"
+        if f.exists():
+            text = f.read_text(encoding="utf-8").strip()
+            # Each result file starts at heading level 1 or 2; nest it under this document.
+            lines = [("#" + ln if ln.startswith("#") else ln) for ln in text.splitlines()]
+            parts.append(f"<!-- from bench/results/{name}.md -->\n" + "\n".join(lines))
+    out = ROOT / "docs" / "benchmarks.md"
+    out.write_text("\n\n".join(parts) + "\n", encoding="utf-8")
+    print(f"wrote {out}")
+
+
+if __name__ == "__main__":
+    main()

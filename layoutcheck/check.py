@@ -161,7 +161,8 @@ def match_page(tp: TemplatePage, found: PageElements, settings: CheckSettings) -
         judged &= np.array([e.id not in unstable for e in els], bool)
     return solve(els, found.elements, tp.sections, judged=judged, settings=settings.solver,
                  position_tol=settings.tolerances.element_tolerance_mm / MM_PER_POINT,
-                 size_tol=settings.tolerances.element_size_pct / 100.0, slack=tp.slack)
+                 size_tol=settings.tolerances.element_size_pct / 100.0, slack=tp.slack,
+                 page_size=(found.width, found.height))
 
 
 def best_match(templates: Sequence[Template], found: PageElements, settings: CheckSettings):

@@ -745,7 +745,7 @@ def size_ratios(tmpl: FrameArrays, inp: FrameArrays, t: np.ndarray, i: np.ndarra
 
 def solve(template_elements, input_elements, sections=(), *, judged=None,
           settings: SolverSettings = SolverSettings(), position_tol: float = 5.67, size_tol: float = 0.10,
-          slack: dict | None = None) -> Match:
+          slack: dict | None = None, page_size: tuple[float, float] | None = None) -> Match:
     """Match one input page to one template page.
 
     Parameters
@@ -761,6 +761,9 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
         Relative size change still ``ok`` (default 10 %).
     slack : dict, optional
         Extra position tolerance per element id, in points (learned from good samples).
+    page_size : (width, height), optional
+        Size of the input page in points. An element whose expected place lies partly off the
+        page is not judged: the sheet cannot show it (a corner mark of a turned scan, say).
 
     Returns
     -------
@@ -833,6 +836,8 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     has_sec = sec_of >= 0
     shift_t[has_sec] = sec_shift[sec_of[has_sec]]
     pred = pose.apply(tmpl.centers + shift_t)
+    if page_size is not None:
+        judged = judged & _on_page(tmpl_els, shift_t, pose, page_size)
     fti, fii = spatial_pairs(pred, tmpl, inp, settings.status_gate, pose.scale, settings)
     final = assign(pred, inp.centers, fti, fii, settings.status_gate)
     results = []
@@ -879,6 +884,17 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
                                          share, int(len(members))))
     support = float(ok_mask[judged].mean()) if judged.any() else 0.0
     return Match(pose, support, tuple(results), tuple(sec_results), len(hyps), len(ti))
+
+
+def _on_page(elements, shift: np.ndarray, pose: Pose, page_size: tuple[float, float], margin: float = 2.83) -> np.ndarray:
+    """Whether each element's expected outline lies on the input page, 1 mm inside its edges."""
+    from .elements import outline
+
+    corners = np.stack([outline(e) for e in elements]) + shift[:, None, :]  # (N, 4, 2)
+    mapped = pose.apply(corners.reshape(-1, 2)).reshape(-1, 4, 2)
+    w, h = page_size
+    inside = (mapped[..., 0] >= margin) & (mapped[..., 0] <= w - margin) & (mapped[..., 1] >= margin) & (mapped[..., 1] <= h - margin)
+    return inside.all(axis=1)
 
 
 def _section_vote(resid: np.ndarray, owners: np.ndarray, settings: SolverSettings):

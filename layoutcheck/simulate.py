@@ -244,8 +244,13 @@ def _draw_fill(img: np.ndarray, source_pdf, page: int, rdpi: float, rng: np.rand
     k = rdpi / POINTS_PER_INCH
     sh = 4  # sub-pixel bits for cv2.polylines
     thick = max(1, int(round(_px(0.5, rdpi))))
-    for x0, top, x1, bottom, kind in _page_boxes(source_pdf, page):
+    boxes = _page_boxes(source_pdf, page)
+    for x0, top, x1, bottom, kind in boxes:
         if rng.random() < 0.4:
+            continue
+        # People write in fields, not across panels: skip boxes that hold other boxes.
+        if any(b[0] >= x0 - 1 and b[1] >= top - 1 and b[2] <= x1 + 1 and b[3] <= bottom + 1 and b[:4] != (x0, top, x1, bottom)
+               for b in boxes):
             continue
         ink = float(rng.uniform(20, 90))
         if kind == "checkbox":
@@ -255,7 +260,10 @@ def _draw_fill(img: np.ndarray, source_pdf, page: int, rdpi: float, rng: np.rand
             n = int(max(8, (x1 - x0) / 3))
             xs = np.linspace(x0 + 3, x0 + 3 + (x1 - x0 - 6) * rng.uniform(0.4, 0.95), n)
             mid = (top + bottom) / 2
-            amp = (bottom - top) * rng.uniform(0.15, 0.35)  # writing stays mostly inside the box
+            # Writing stays mostly inside the box, in a line of handwriting (at most ~3 mm high).
+            amp = min((bottom - top) * rng.uniform(0.15, 0.35), 8.5 * rng.uniform(0.5, 1.0))
+            if bottom - top > 40:
+                mid = top + min(20.0, (bottom - top) / 2)  # first line of a large box
             ys = mid + amp * np.sin(xs * rng.uniform(0.3, 0.9) + rng.uniform(0, 6)) + rng.normal(0, amp * 0.2, n)
             if rng.random() < 0.5:
                 ys[-1] = bottom + 2  # a stroke that runs onto the bottom border

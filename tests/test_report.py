@@ -390,3 +390,28 @@ def test_empty_batch(tmp_path, templates):
     doc = parse(out)
     assert not doc.find_all("article")
     assert "No pages were checked." in doc.find("main").text()
+
+
+def test_normalised_page_is_shown_with_its_zones(tmp_path, templates):
+    """A record with a normalised image gets the hand-off section: the image and one outline per
+    zone, the moved zone dashed (its own style), in template points."""
+    from layoutcheck.check import CheckSettings
+
+    settings = CheckSettings(zones=True, normalise_dir=str(tmp_path / "norm"))
+    recs = list(check_file(str(SAMPLES / "inputs" / "101_rotated.pdf"), templates, settings))
+    recs += list(check_file(str(SAMPLES / "inputs" / "101_old_revision.pdf"), templates, CheckSettings(zones=True)))
+    out = tmp_path / "r.html"
+    write_report(out, recs, templates, Tolerances())
+    doc = parse(out)
+    sections = [n for n in doc.find_all("section") if "handoff" in n.classes()]
+    assert len(sections) == 1  # only the page that was normalised
+    zones = recs[0]["zones"]
+    polys = sections[0].find_all("polygon")
+    assert len(polys) == len(zones) > 0
+    assert all("zone" in p.classes() for p in polys)  # the rotated page: every zone in place
+    # Outline of the first zone: its template frame, untouched by the page's 2-degree turn.
+    x0, top, x1, bottom = zones[0]["frame_pt"]
+    pts = [tuple(map(float, xy.split(","))) for xy in polys[0].attrs["points"].split()]
+    assert pts[0] == pytest.approx((x0, top), abs=0.05) and pts[2] == pytest.approx((x1, bottom), abs=0.05)
+    img = sections[0].find("img")
+    assert img.attrs["src"].startswith("data:image/")

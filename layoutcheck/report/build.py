@@ -354,7 +354,39 @@ def page_view(index: int, rec: dict, templates: dict, tol: Tolerances, base_dir,
                                           f"{s.get('support', 0):.0%} of its elements in place"))
     if with_images and rec.get("page") is not None:
         _add_picture(view, rec, templates, base_dir)
+    view["handoff"] = handoff_view(rec, base_dir) if with_images else None
     return view
+
+
+def handoff_view(rec: dict, base_dir) -> dict | None:
+    """The normalised page (template frame) with the template's zones drawn on it, if written."""
+    norm = rec.get("normalised") or {}
+    path = norm.get("path")
+    if not path:
+        return None
+    from PIL import Image
+
+    try:
+        with Image.open(resolve(str(path), base_dir)) as im:
+            image = np.asarray(im.convert("L"))
+    except OSError as exc:
+        return {"note": clean(f"The normalised page could not be shown: {exc}")}
+    dpi = float(norm.get("dpi") or PAGE_DPI)
+    small = resample(image, PAGE_DPI / dpi) if dpi > PAGE_DPI * 1.05 else image
+    zones = []
+    for z in rec.get("zones") or []:
+        x0, top, x1, bottom = z["frame_pt"]
+        pts = np.array([[x0, top], [x1, top], [x1, bottom], [x0, bottom]], float)
+        ok = bool(z.get("in_place"))
+        zones.append({"name": clean(z.get("name")), "status": clean(z.get("status")), "ok": ok,
+                      "points": points_attr(pts), "style": "zone" if ok else "zoneoff",
+                      "tx": float(x0), "ty": float(top) - 1.5})
+    return {
+        "image": encode_image(small, photo=True), "image_px": (small.shape[1], small.shape[0]),
+        "width": image.shape[1] * POINTS_PER_INCH / dpi, "height": image.shape[0] * POINTS_PER_INCH / dpi,
+        "file": clean(os.path.basename(str(path))), "dpi": dpi, "zones": zones,
+        "off": [z for z in zones if not z["ok"]],
+    }
 
 
 def _add_picture(view: dict, rec: dict, templates: dict, base_dir) -> None:

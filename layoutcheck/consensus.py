@@ -419,21 +419,25 @@ def gated_pairs(tmpl: FrameArrays, inp: FrameArrays, settings: SolverSettings = 
 
 
 def spatial_pairs(pred: np.ndarray, tmpl: FrameArrays, inp: FrameArrays, radius: float, scale: float = 1.0,
-                  settings: SolverSettings = SolverSettings()) -> tuple[np.ndarray, np.ndarray]:
+                  settings: SolverSettings = SolverSettings(), only: np.ndarray | None = None,
+                  free: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Compatible pairs whose input element lies within ``radius`` of the predicted place.
 
     Same kind class, size within the scale range of the expected size, and equal text where
     both sides have text; found with k-d trees, so the cost grows with the elements, not with
-    their product.
+    their product. ``only`` limits the template elements asked about, ``free`` (a mask) the
+    input elements that may answer.
     """
     from scipy.spatial import cKDTree
 
     lo, hi = settings.scale_range
     out_t, out_i = [], []
     lt, li = _log_sizes(tmpl), _log_sizes(inp)
+    t_ok = np.ones(len(tmpl.classes), bool) if only is None else np.isin(np.arange(len(tmpl.classes)), only)
+    i_ok = np.ones(len(inp.classes), bool) if free is None else free
     for code in np.unique(tmpl.classes):
-        tix = np.flatnonzero(tmpl.classes == code)
-        iix = np.flatnonzero(inp.classes == code)
+        tix = np.flatnonzero((tmpl.classes == code) & t_ok)
+        iix = np.flatnonzero((inp.classes == code) & i_ok)
         if len(tix) == 0 or len(iix) == 0:
             continue
         sdm = cKDTree(pred[tix]).sparse_distance_matrix(cKDTree(inp.centers[iix]), radius, output_type="ndarray")
@@ -809,7 +813,12 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     sec_moved = np.zeros(len(sections), bool)
     sec_support = np.zeros(len(sections))
     # Pairs near where the page pose puts each element, as far as a section may have moved.
-    sti, sii = spatial_pairs(pose.apply(tmpl.centers), tmpl, inp, settings.section_reach, pose.scale, settings)
+    big_enough = [s_i for s_i in range(len(sections))
+                  if ((sec_of == s_i) & judged).sum() >= settings.section_min_elements]
+    if big_enough:
+        sti, sii = spatial_pairs(pose.apply(tmpl.centers), tmpl, inp, settings.section_reach, pose.scale, settings)
+    else:
+        sti = sii = np.zeros(0, int)
     if len(sti):
         resid = inv.apply(inp.centers[sii]) - tmpl.centers[sti]
         for s_i, s in enumerate(sections):
@@ -838,8 +847,17 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     pred = pose.apply(tmpl.centers + shift_t)
     if page_size is not None:
         judged = judged & _on_page(tmpl_els, shift_t, pose, page_size)
-    fti, fii = spatial_pairs(pred, tmpl, inp, settings.status_gate, pose.scale, settings)
-    final = assign(pred, inp.centers, fti, fii, settings.status_gate)
+    # Near partners first; then the elements left over look farther, among the inputs left over
+    # (a moved box is found as moved, up to the status gate, without enlarging every problem).
+    final = assign(pred, inp.centers, *spatial_pairs(pred, tmpl, inp, settings.refine_gate, pose.scale, settings),
+                   settings.refine_gate)
+    left = np.flatnonzero(final < 0)
+    if len(left):
+        free = np.ones(len(inp.centers), bool)
+        free[final[final >= 0]] = False
+        far = assign(pred, inp.centers, *spatial_pairs(pred, tmpl, inp, settings.status_gate, pose.scale, settings,
+                                                       only=left, free=free), settings.status_gate)
+        final[left] = far[left]
     results = []
     ok_mask = np.zeros(n, bool)
     got = np.flatnonzero(final >= 0)

@@ -5,8 +5,6 @@ Run: ``python bench/bench_batch.py``; prints a markdown table and writes bench/r
 
 from __future__ import annotations
 
-import json
-import resource
 import subprocess
 import sys
 import tempfile

@@ -64,6 +64,29 @@ def parse_pages(spec: str | None) -> set[int] | None:
     return out
 
 
+def reference_pages(path: str, limits: ReadLimits, pages: set[int] | None, with_raster: bool = True):
+    """``(page, vector elements or None, raster elements or None)`` per page of a reference.
+
+    A born-digital page is also rendered and read as a scan would be (at
+    :data:`REFERENCE_RENDER_DPI`), so scans of the form have elements of their own kind to match.
+    Raises :class:`LearnError` for a page that cannot be read.
+    """
+    for page in read_pages(path, limits, pages):
+        if isinstance(page, PageError):
+            raise LearnError(page.message)
+        if isinstance(page, VectorPage):
+            ras = None
+            vec = extract(page)
+            if with_raster:
+                rendered = render_pdf_page(path, page.page, limits, REFERENCE_RENDER_DPI)
+                if isinstance(rendered, PageError):
+                    raise LearnError(rendered.message)
+                ras = extract(rendered)
+            yield page, vec, ras
+        else:
+            yield page, None, extract(page)
+
+
 def learn(references: Sequence[str], name: str | None = None, pages: set[int] | None = None,
           limits: ReadLimits = ReadLimits(), section_names: dict[str, str] | None = None,
           with_raster: bool = True) -> Template:
@@ -75,30 +98,17 @@ def learn(references: Sequence[str], name: str | None = None, pages: set[int] | 
     refs = [str(r) for r in references]
     if not refs:
         raise LearnError("no reference given")
+    from .zones import with_zones
+
     if len(refs) > 1:
         from .samples import learn_from_samples
-
-        from .zones import with_zones
 
         return with_zones(learn_from_samples(refs, name=name, pages=pages, limits=limits, section_names=section_names,
                                              with_raster=with_raster))
     ref = refs[0]
     out_pages: list[TemplatePage] = []
-    for page in read_pages(ref, limits, pages):
-        if isinstance(page, PageError):
-            raise LearnError(page.message)
-        number = len(out_pages) + 1
-        if isinstance(page, VectorPage):
-            vec = extract(page)
-            ras = None
-            if with_raster:
-                rendered = render_pdf_page(ref, page.page, limits, REFERENCE_RENDER_DPI)
-                if isinstance(rendered, PageError):
-                    raise LearnError(rendered.message)
-                ras = extract(rendered)
-            tp = template_page(number, vec, ras, section_names)
-        else:
-            tp = template_page(number, None, extract(page), section_names)
+    for page, vec, ras in reference_pages(ref, limits, pages, with_raster):
+        tp = template_page(len(out_pages) + 1, vec, ras, section_names)
         if len(tp.elements) < 3:
             raise LearnError(f"{where(ref, page.page)}: only {len(tp.elements)} form elements found; "
                              "a template needs ruled lines, boxes or labels (blank or photographic page?)")
@@ -106,8 +116,6 @@ def learn(references: Sequence[str], name: str | None = None, pages: set[int] | 
     if not out_pages:
         raise LearnError(f"{where(ref, None)}: no pages selected")
     stem = name or _default_name(ref)
-    from .zones import with_zones
-
     return with_zones(Template(stem, tuple(out_pages), (ref.split("/")[-1],)))
 
 

@@ -6,7 +6,6 @@ Exit codes: 0 every page passed, 1 some page did not, 2 usage error or unreadabl
 
 from __future__ import annotations
 
-import json
 import os
 import sys
 from pathlib import Path
@@ -262,14 +261,6 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
         click.echo("\n".join(summary_table(records).split("\n")[:-1]), file=out)
     click.echo(result.summary(), file=out)
     sys.exit(EXIT_PASS if result.all_pass else EXIT_FLAGGED)
-
-
-def _open_sink(json_out):
-    if not json_out:
-        return None
-    if json_out == "-":
-        return sys.stdout
-    return open(json_out, "w", encoding="utf-8")
 
 
 def _write_report(path, records, templates, tolerances):

@@ -33,7 +33,7 @@ from scipy.optimize import linear_sum_assignment
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
-from .elements import KIND_CLASS, MM_PER_POINT, Element
+from .elements import KIND_CLASS, MM_PER_POINT
 from .pose import Pose
 
 #: Offsets (in cells) of the shift grids: two grids, the second shifted by half a cell on both
@@ -272,6 +272,22 @@ def _peaks_1d(values: np.ndarray, owners: np.ndarray, bin_width: float, lo: floa
 
 def _circ_diff(a: np.ndarray, b: float) -> np.ndarray:
     return (a - b + 180.0) % 360.0 - 180.0
+
+
+def shift_peak(shifts: np.ndarray, owners: np.ndarray, bin_width: float) -> tuple[int, np.ndarray]:
+    """The fullest cell of a 2-D shift vote, counted once per owner: ``(count, mask of votes in it)``.
+
+    Votes fall on each of :data:`SHIFT_GRIDS`; the best cell of any grid wins.
+    """
+    best = (-1, np.zeros(len(shifts), bool))
+    for off in SHIFT_GRIDS:
+        q = np.floor(shifts / bin_width + np.array(off)).astype(np.int64)
+        keys = (q[:, 0] + (1 << 20)) * (1 << 21) + (q[:, 1] + (1 << 20))
+        uk, counts = _distinct_counts(keys, owners)
+        j = int(np.argmax(counts))
+        if counts[j] > best[0]:
+            best = (int(counts[j]), keys == uk[j])
+    return best
 
 
 @dataclass(frozen=True)
@@ -552,16 +568,7 @@ def _hypothesis_for_rotation(tmpl, inp, ti, ii, pidx, prot, rot, settings) -> Hy
     if len(t_i) == 0:
         return None
     shifts = inp.centers[i_i] - tmpl.centers[t_i] @ lin.T
-    bw = settings.shift_bin
-    best = (-1, None)
-    for off in SHIFT_GRIDS:
-        q = np.floor(shifts / bw + np.array(off)).astype(np.int64)
-        keys = (q[:, 0] + (1 << 20)) * (1 << 21) + (q[:, 1] + (1 << 20))
-        uk, counts = _distinct_counts(keys, t_i)
-        j = int(np.argmax(counts))
-        if counts[j] > best[0]:
-            best = (int(counts[j]), (keys == uk[j]))
-    votes, in_bin = best
+    votes, in_bin = shift_peak(shifts, t_i, settings.shift_bin)
     t0 = np.median(shifts[in_bin], axis=0)
     m = np.eye(3)
     m[:2, :2] = lin
@@ -917,19 +924,10 @@ def _on_page(elements, shift: np.ndarray, pose: Pose, page_size: tuple[float, fl
 
 def _section_vote(resid: np.ndarray, owners: np.ndarray, settings: SolverSettings):
     """Residual shift most elements of a section agree on: ``(offset, count, count at zero)``."""
-    bw = settings.shift_bin
-    best = (0, np.zeros(2))
-    zero_count = 0
-    for off in SHIFT_GRIDS:
-        q = np.floor(resid / bw + np.array(off)).astype(np.int64)
-        keys = (q[:, 0] + (1 << 20)) * (1 << 21) + (q[:, 1] + (1 << 20))
-        uk, counts = _distinct_counts(keys, owners)
-        j = int(np.argmax(counts))
-        if counts[j] > best[0]:
-            best = (int(counts[j]), np.median(resid[keys == uk[j]], axis=0))
+    count, in_bin = shift_peak(resid, owners, settings.shift_bin)
     near_zero = np.hypot(*resid.T) <= settings.agree * 2
     zero_count = len(np.unique(owners[near_zero]))
-    return best[1], best[0], zero_count
+    return np.median(resid[in_bin], axis=0), count, zero_count
 
 
 def _all_missing(tmpl_els, sections, judged) -> tuple[ElementResult, ...]:

@@ -16,7 +16,7 @@ import numpy as np
 
 from .consensus import SolverSettings, solve
 from .elements import Element, PageElements, frame_from_center
-from .sources import PageError, ReadLimits, VectorPage, read_pages, render_pdf_page, where
+from .sources import ReadLimits, where
 from .template import Template, TemplatePage, find_sections, match_raster_to_vector, with_raster_sections
 
 #: Share of samples an element must be found on to be part of the template (a majority).
@@ -76,29 +76,10 @@ def consensus_elements(samples: Sequence[PageElements], settings: SolverSettings
 
 
 def _sample_pages(path: str, limits: ReadLimits, pages: set[int] | None, with_raster: bool):
-    """(vector PageElements or None, raster PageElements) per page of one sample file."""
-    from .check import REFERENCE_RENDER_DPI, extract
+    """(vector PageElements or None, raster PageElements or None) per page of one sample file."""
+    from .check import reference_pages
 
-    out = []
-    for page in read_pages(path, limits, pages):
-        if isinstance(page, PageError):
-            from .check import LearnError
-
-            raise LearnError(page.message)
-        if isinstance(page, VectorPage):
-            vec = extract(page)
-            ras = None
-            if with_raster:
-                rendered = render_pdf_page(path, page.page, limits, REFERENCE_RENDER_DPI)
-                if isinstance(rendered, PageError):
-                    from .check import LearnError
-
-                    raise LearnError(rendered.message)
-                ras = extract(rendered)
-            out.append((vec, ras))
-        else:
-            out.append((None, extract(page)))
-    return out
+    return [(vec, ras) for _, vec, ras in reference_pages(path, limits, pages, with_raster)]
 
 
 def learn_from_samples(paths: Sequence[str], name: str | None = None, pages: set[int] | None = None,

@@ -79,8 +79,6 @@ def mutate(data: bytes, draw) -> bytes:
 
 
 def read_all(path) -> list:
-    from layoutcheck.check import learn  # noqa: F401  (same import path as the batch)
-
     out = []
     for page in read_pages(path):
         assert isinstance(page, (VectorPage, RasterPage, PageError))

@@ -1,0 +1,20 @@
+"""Look at one case of the scan suite: python bench/show_case.py INDEX (writes /tmp/caseINDEX.png)."""
+import sys; sys.path.insert(0, 'bench')
+from pathlib import Path
+from scan_suite import make_cases, scan, REFS
+from layoutcheck.check import learn, extract, record_for, CheckSettings
+from layoutcheck.sources import RasterPage
+idx = int(sys.argv[1])
+templates = {p.name: learn([str(p)]) for p in sorted(REFS.glob("*.pdf"))}
+cases = make_cases(templates, 100)
+c = cases[idx]; print(c)
+t = templates[c.form]
+sc = scan(c, t, Path("/tmp"))
+from PIL import Image; Image.fromarray(sc.image).save(f"/tmp/case{idx}.png")
+page = RasterPage("x", 1, sc.image, sc.dpi, sc.bitonal)
+found = extract(page)
+rec = record_for("x", 1, found, [t], CheckSettings())
+print(rec["verdict"], rec["pose"])
+for o in rec["offending"]: print(o)
+tp = t.pages[c.page-1]
+print(len(tp.raster_elements), len(found.elements))

@@ -359,7 +359,8 @@ def template_from_dict(data: object, where: str = "template") -> Template:
     try:
         pages = tuple(TemplatePage.from_dict(p) for p in data["pages"])
         name = str(data["name"])
-    except (KeyError, TypeError, ValueError, IndexError) as exc:
+        references = tuple(str(r) for r in data.get("references") or [])
+    except (KeyError, TypeError, ValueError, IndexError, AttributeError) as exc:
         raise TemplateError(f"{where}: template is damaged ({type(exc).__name__}: {exc})") from None
     if not pages:
         raise TemplateError(f"{where}: template has no pages")
@@ -372,7 +373,10 @@ def template_from_dict(data: object, where: str = "template") -> Template:
         for e in p.elements + p.raster_elements:
             if not all(np.isfinite(v) for v in e.frame):
                 raise TemplateError(f"{where}: template page {p.number} element {e.id} has an invalid frame")
-    return Template(name, pages, tuple(str(r) for r in data.get("references", [])))
+        for z in p.zones:
+            if not all(np.isfinite(v) for v in z.frame):
+                raise TemplateError(f"{where}: template page {p.number} zone {z.name!r} has an invalid frame")
+    return Template(name, pages, references)
 
 
 def load_template(path: str | os.PathLike) -> Template:

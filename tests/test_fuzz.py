@@ -44,9 +44,9 @@ def _paths(d, prefix=()):
 @given(data=st.data())
 def test_template_loader_mutations(template_dict, data):
     d = json.loads(json.dumps(template_dict))
-    paths = list(_paths(d))
     for _ in range(data.draw(st.integers(1, 3))):
-        path = data.draw(st.sampled_from(paths))
+        # Paths are listed again after each change: an earlier one may have replaced a parent.
+        path = data.draw(st.sampled_from(list(_paths(d))))
         node = d
         for k in path[:-1]:
             node = node[k]

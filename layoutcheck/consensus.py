@@ -729,7 +729,10 @@ def solve_correspondences(model_frames: FrameArrays, input_frames: FrameArrays, 
     hyps = _strong(vote_pose(model_frames, input_frames, ti, ii, settings))
     best = None
     for h in hyps:
-        pose, assignment, agree = refine(h.pose, model_frames, input_frames, ti, ii, weights, settings)
+        # Refine on the given pairs near this hypothesis' prediction (twice the refinement gate).
+        pred = h.pose.apply(model_frames.centers)
+        near = np.hypot(*(pred[ti] - input_frames.centers[ii]).T) <= 2.0 * settings.refine_gate
+        pose, assignment, agree = refine(h.pose, model_frames, input_frames, ti[near], ii[near], weights, settings)
         score = int(agree.sum())
         if best is None or score > best[0]:
             best = (score, pose, assignment, agree)

@@ -275,7 +275,12 @@ def _draw_fill(img: np.ndarray, source_pdf, page: int, rdpi: float, rng: np.rand
 
 
 def _draw_stamp(img: np.ndarray, dpi: float, rng: np.random.Generator) -> np.ndarray:
-    """A rectangular stamp outline with text, turned by 8 to 25 degrees, somewhere on the page."""
+    """A rectangular stamp outline with text, turned by 8 to 25 degrees, on free space.
+
+    A clerk puts a receipt stamp where the sheet has room (common practice): of 24 random places
+    in the middle of the page, the one whose footprint covers the least printed ink is used. It
+    may still touch print; it is never put squarely over a block of fields on purpose.
+    """
     h, w = img.shape
     sw, shh = _px(60.0, dpi), _px(22.0, dpi)
     canvas = np.full((int(shh * 1.6), int(sw * 1.2)), 255, np.uint8)
@@ -289,7 +294,16 @@ def _draw_stamp(img: np.ndarray, dpi: float, rng: np.random.Generator) -> np.nda
     (tw, th), _ = cv2.getTextSize(text, font, fs, thick)
     cv2.putText(canvas, text, (int(x0 + (sw - tw) / 2), int(y0 + (shh + th) / 2)), font, fs, 60, thick, cv2.LINE_AA)
     ang = float(rng.uniform(8, 25)) * (1 if rng.random() < 0.5 else -1)
-    cx, cy = float(rng.uniform(0.3, 0.7) * w), float(rng.uniform(0.3, 0.7) * h)
+    ink = cv2.integral((img < 160).astype(np.uint8))
+    half_w, half_h = cw / 2.0, ch / 2.0
+
+    def covered(x: float, y: float) -> int:
+        a0, a1 = int(max(0, x - half_w)), int(min(w, x + half_w))
+        b0, b1 = int(max(0, y - half_h)), int(min(h, y + half_h))
+        return int(ink[b1, a1] - ink[b0, a1] - ink[b1, a0] + ink[b0, a0])
+
+    places = [(float(rng.uniform(0.3, 0.7) * w), float(rng.uniform(0.3, 0.7) * h)) for _ in range(24)]
+    cx, cy = min(places, key=lambda q: covered(*q))
     m = cv2.getRotationMatrix2D((cw / 2.0, ch / 2.0), ang, 1.0)
     m[:, 2] += [cx - cw / 2.0, cy - ch / 2.0]
     placed = cv2.warpAffine(canvas, m, (w, h), flags=cv2.INTER_LINEAR, borderValue=255)

@@ -456,6 +456,16 @@ class _Scheduler:
         return self.next_plan >= len(self.files) and not self.heap and self.running == 0
 
 
+def _settle(sched: "_Scheduler", order: _Order, task: tuple, out) -> None:
+    """A finished task: a file's plan schedules its pages; a page's record joins the order."""
+    sched.running -= 1
+    if task[0] == "plan":
+        sched.add_pages(task[1], order.set_plan(task[1], out))
+    else:
+        order.add(task[1], task[2], out)
+    order.flush()
+
+
 def _pool_worker(conn, templates, settings, limits) -> None:  # pragma: no cover - runs in a child
     """A worker process: plan files and check pages as told, one at a time."""
     # Import the readers and extractors before saying ready, so no page pays for them.
@@ -509,12 +519,7 @@ def _run_pool(files, templates, settings, limits, options: BatchOptions, order: 
     limit = options.page_timeout
 
     def settle(task, out) -> None:
-        sched.running -= 1
-        if task[0] == "plan":
-            sched.add_pages(task[1], order.set_plan(task[1], out))
-        else:
-            order.add(task[1], task[2], out)
-        order.flush()
+        _settle(sched, order, task, out)
 
     def failed(task, why: str) -> dict | list:
         path = files[task[1]]
@@ -627,13 +632,7 @@ def _run_dask(files, templates, settings, limits, options: BatchOptions, order: 
         submit_ready()
         while not sched.finished():
             fut, out = next(pending)
-            t = meta.pop(fut.key)
-            sched.running -= 1
-            if t[0] == "plan":
-                sched.add_pages(t[1], order.set_plan(t[1], out))
-            else:
-                order.add(t[1], t[2], out)
-            order.flush()
+            _settle(sched, order, meta.pop(fut.key), out)
             submit_ready()
     finally:
         client.close()

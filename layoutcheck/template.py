@@ -379,16 +379,20 @@ def template_from_dict(data: object, where: str = "template") -> Template:
     return Template(name, pages, references)
 
 
-def load_template(path: str | os.PathLike) -> Template:
-    """Read and validate a template file; raises :class:`TemplateError` with a one-line message."""
+def read_json_file(path: str | os.PathLike, what: str, error: type[Exception]):
+    """Parsed JSON of a file; ``error`` with a one-line message naming the file otherwise."""
     where = os.path.basename(str(path))
     try:
         with open(path, encoding="utf-8") as fh:
-            data = json.load(fh)
+            return json.load(fh)
     except FileNotFoundError:
-        raise TemplateError(f"{where}: no such template file") from None
+        raise error(f"{where}: no such {what}{'' if what.endswith('file') else ' file'}") from None
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise TemplateError(f"{where}: template is not valid JSON ({exc})") from None
+        raise error(f"{where}: {what} is not valid JSON ({' '.join(str(exc).split())})") from None
     except OSError as exc:
-        raise TemplateError(f"{where}: template cannot be read ({exc.strerror})") from None
-    return template_from_dict(data, where)
+        raise error(f"{where}: {what} cannot be read ({exc.strerror})") from None
+
+
+def load_template(path: str | os.PathLike) -> Template:
+    """Read and validate a template file; raises :class:`TemplateError` with a one-line message."""
+    return template_from_dict(read_json_file(path, "template", TemplateError), os.path.basename(str(path)))

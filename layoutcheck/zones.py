@@ -18,7 +18,6 @@ where the form has something else.
 
 from __future__ import annotations
 
-import json
 import math
 import os
 import re
@@ -29,7 +28,7 @@ import numpy as np
 
 from .check import LearnError
 from .elements import POINTS_PER_INCH, Element, frame_contains, frame_overlap
-from .template import Template, TemplatePage, Zone
+from .template import Template, TemplatePage, Zone, read_json_file
 
 #: Element kinds a zone may be made from when a page has no form fields.
 BOX_KINDS = ("box", "checkbox")
@@ -153,15 +152,7 @@ def elements_under(page: TemplatePage, frame: Sequence[float]) -> tuple[str, ...
 def read_zone_file(path: str | os.PathLike, template: Template) -> dict[int, list[Zone]]:
     """Validated zones of a zones file, by page number; raises :class:`ZoneError` (one line)."""
     where = os.path.basename(str(path))
-    try:
-        with open(path, encoding="utf-8") as fh:
-            data = json.load(fh)
-    except FileNotFoundError:
-        raise ZoneError(f"{where}: no such zones file") from None
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise ZoneError(f"{where}: zones file is not valid JSON ({' '.join(str(exc).split())})") from None
-    except OSError as exc:
-        raise ZoneError(f"{where}: zones file cannot be read ({exc.strerror})") from None
+    data = read_json_file(path, "zones file", ZoneError)
     if not isinstance(data, dict) or not isinstance(data.get("zones"), list):
         raise ZoneError(f"{where}: a zones file is an object with a \"zones\" list")
     out: dict[int, list[Zone]] = {}

@@ -18,3 +18,14 @@ print(rec["verdict"], rec["pose"])
 for o in rec["offending"]: print(o)
 tp = t.pages[c.page-1]
 print(len(tp.raster_elements), len(found.elements))
+if len(sys.argv) > 2:  # an element id: show the input elements near where the pose puts it
+    import numpy as np
+    from layoutcheck.pose import Pose
+    eid = sys.argv[2]
+    e = next(x for x in tp.elements_for("raster") if x.id == eid)
+    pose = Pose(np.array(rec["pose"]["matrix"]))
+    c = pose.apply(np.array([e.center]))[0]
+    for f in found.elements:
+        d = np.hypot(*(np.array(f.center) - c))
+        if d < 60:
+            print(f"  {f.kind:9s} {f.id:12s} {d:6.1f} pt from {eid}'s place, size {f.size[0]:.1f} x {f.size[1]:.1f} (template {e.size[0]:.1f} x {e.size[1]:.1f})")

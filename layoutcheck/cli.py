@@ -119,6 +119,12 @@ def learn(references, output, name, pages_spec, dpi, section_names, zones_file, 
         click.echo(f"{template.name} page {p.number}: {len(p.elements)} elements in {len(p.sections)} sections"
                    + (f", {len(p.raster_elements)} as seen in a scan" if p.raster_elements else "")
                    + (f", {len(p.unstable)} unstable" if p.unstable else ""))
+        if p.unstable:
+            # Found on some good samples only: not judged on input pages, so a person should know.
+            by_id = {e.id: e for e in p.elements}
+            names = [by_id[i].label() for i in p.unstable if i in by_id]
+            shown = ", ".join(names[:10]) + (f" and {len(names) - 10} more" if len(names) > 10 else "")
+            click.echo(f"  not on every sample (not judged): {shown}")
     click.echo(f"wrote {output}")
 
 

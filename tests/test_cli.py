@@ -96,3 +96,13 @@ def test_bad_input_file_gives_error_record_and_batch_goes_on(files, tmp_path):
     assert [r["verdict"] for r in recs] == ["error", "pass"]
     assert recs[0]["error"] == "junk.pdf: not a PDF (no %PDF header)"
     assert res.exit_code == 1
+
+
+def test_learn_from_samples_names_the_unstable_elements(tmp_path):
+    a = draw_form(tmp_path / "a.pdf")
+    b = draw_form(tmp_path / "b.pdf")
+    c = draw_form(tmp_path / "c.pdf", omit={"Agent"})
+    res = CliRunner().invoke(main, ["learn", str(a), str(b), str(c), "-o", str(tmp_path / "t.json")])
+    assert res.exit_code == 0, res.output
+    line = next(x for x in res.output.splitlines() if x.startswith("  not on every sample"))
+    assert "box 'Agent' (box-" in line

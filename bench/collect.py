@@ -14,7 +14,13 @@ import platform
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
-ORDER = ("consensus", "raster", "scans", "normalise", "batch")
+ORDER = (
+    ("consensus", "Consensus solver: frame voting against RANSAC, and time against size"),
+    ("raster", "Raster extraction: openings, floor, precision"),
+    ("scans", "Simulated scans: accuracy, speed and memory end to end"),
+    ("normalise", "Normalised pages and zones"),
+    ("batch", "Batches: throughput, choosing among 50 templates, memory"),
+)
 PREFACE = """# Benchmarks
 
 Speed, memory and accuracy targets are met here, never in timed unit tests. Each section below is
@@ -30,13 +36,13 @@ Machine of the last collection: {machine}, Python {python}.
 def main() -> None:
     parts = [PREFACE.format(machine=platform.machine(), python=platform.python_version())]
     results = ROOT / "bench" / "results"
-    for name in ORDER:
+    for name, title in ORDER:
         f = results / f"{name}.md"
         if f.exists():
             text = f.read_text(encoding="utf-8").strip()
-            # Each result file starts at heading level 1 or 2; nest it under this document.
-            lines = [("#" + ln if ln.startswith("#") else ln) for ln in text.splitlines()]
-            parts.append(f"<!-- from bench/results/{name}.md -->\n" + "\n".join(lines))
+            # One level-2 heading per benchmark; its own headings, whatever their level, below it.
+            lines = [("### " + ln.lstrip("#").strip() if ln.startswith("#") else ln) for ln in text.splitlines()]
+            parts.append(f"## {title}\n\nFrom `bench/results/{name}.md`.\n\n" + "\n".join(lines))
     out = ROOT / "docs" / "benchmarks.md"
     out.write_text("\n\n".join(parts) + "\n", encoding="utf-8")
     print(f"wrote {out}")

@@ -24,6 +24,9 @@ from .verdict import Finding, Tolerances, judge, offending
 #: (200 dpi: common practice for office scans; the raster extractor works in mm, so scans at
 #: other resolutions compare alike).
 REFERENCE_RENDER_DPI = 200.0
+#: Rendered at three times that and averaged down: pdfium snaps rectangle edges to its pixel grid
+#: (by up to a few hundredths of a millimetre), which would bias the template's raster frames.
+REFERENCE_OVERSAMPLE = 3
 
 
 class LearnError(Exception):
@@ -78,7 +81,7 @@ def reference_pages(path: str, limits: ReadLimits, pages: set[int] | None, with_
             ras = None
             vec = extract(page)
             if with_raster:
-                rendered = render_pdf_page(path, page.page, limits, REFERENCE_RENDER_DPI)
+                rendered = render_pdf_page(path, page.page, limits, REFERENCE_RENDER_DPI, REFERENCE_OVERSAMPLE)
                 if isinstance(rendered, PageError):
                     raise LearnError(rendered.message)
                 ras = extract(rendered)

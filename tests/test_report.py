@@ -170,7 +170,7 @@ def test_every_offending_element_is_listed_with_its_caption(report, records):
     # The old revision: box 'Gross tonnage' planted 12 mm to the right (sample_forms/make_forms.py).
     k = by_source(records, "101_old_revision.pdf")
     items = [li.text() for li in article(doc, k).find("ul", **{"class": "what"}).find_all("li")]
-    assert "Box 'Gross tonnage' is 12.0 mm right from where this form has it." in items
+    assert "Box 'Gross tonnage' has moved 12.0 mm right from where this form has it." in items
 
 
 def test_pose_numbers_match_the_record(report, records):

@@ -92,11 +92,11 @@ def offending_sentence(o: dict, tol: Tolerances) -> str:
     who = element_name(o)
     status = o.get("status")
     if o.get("kind") == "section" and status == "moved":
-        return f"{who} is {direction_words(*o['offset_mm'])} from where this form has it, as a whole"
+        return f"{who} has moved {direction_words(*o['offset_mm'])} from where this form has it, as a whole"
     if status == "missing":
         return f"{who} is missing: nothing like it was found where this form has it"
     if status == "moved" and o.get("offset_mm"):
-        return f"{who} is {direction_words(*o['offset_mm'])} from where this form has it"
+        return f"{who} has moved {direction_words(*o['offset_mm'])} from where this form has it"
     if status == "resized" and o.get("size_ratio") is not None:
         return (f"{who} is {o['size_ratio']:.0%} of its expected size "
                 f"(±{tol.element_size_pct:g} % accepted)")

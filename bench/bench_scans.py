@@ -161,24 +161,16 @@ def summarise(rows, sp, mem) -> str:
         f"| peak RSS of a process verifying the page (imports alone) | {mem[0]:.0f} MB ({mem[1]:.0f} MB) | ≤ 300 MB per page |",
         "",
     ]
-    wrong = [r for r in clear if r["verdict"] != r["want"]]
-    if wrong:
-        lines.append("Pages whose verdict differed from the truth:")
-        lines.append("")
-        for r in wrong:
-            c = r["case"]
-            lines.append(f"- case {c.index} ({c.form} p{c.page}, {c.dpi} dpi, turn {c.rotation_deg:+.2f}°, fault {c.fault}): "
+    def listing(title, rows, line):
+        if rows:
+            lines.extend([title, ""] + [line(r["case"], r) for r in rows] + [""])
+
+    listing("Pages whose verdict differed from the truth:", [r for r in clear if r["verdict"] != r["want"]],
+            lambda c, r: f"- case {c.index} ({c.form} p{c.page}, {c.dpi} dpi, turn {c.rotation_deg:+.2f}°, fault {c.fault}): "
                          f"{r['verdict']} instead of {r['want']}; " + "; ".join(f["message"] for f in r["rec"]["findings"][:2]))
-        lines.append("")
-    missed = [r for r in faults if r not in named]
-    if missed:
-        lines.append("Planted faults not named as planted:")
-        lines.append("")
-        for r in missed:
-            c = r["case"]
-            lines.append(f"- case {c.index}: {c.fault} {c.fault_box} on {c.form} p{c.page}; found "
+    listing("Planted faults not named as planted:", [r for r in faults if r not in named],
+            lambda c, r: f"- case {c.index}: {c.fault} {c.fault_box} on {c.form} p{c.page}; found "
                          + json.dumps([(o["id"], o["status"]) for o in r["rec"]["offending"]][:6]))
-        lines.append("")
     return "\n".join(lines)
 
 

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import time
 from dataclasses import dataclass
-from typing import Iterable, Iterator, Sequence
+from typing import Iterator, Sequence
 
 import numpy as np
 
@@ -320,9 +320,3 @@ def check_file(path: str, templates: Sequence[Template], settings: CheckSettings
     """Records for every page of one file, in page order; never raises for bad input."""
     for page in read_pages(path, limits, pages):
         yield handoff_fields(check_page(page, templates, settings), settings)
-
-
-def check_files(paths: Iterable[str], templates: Sequence[Template], settings: CheckSettings = CheckSettings(),
-                limits: ReadLimits = ReadLimits()) -> Iterator[dict]:
-    for p in paths:
-        yield from check_file(p, templates, settings, limits)

@@ -168,16 +168,6 @@ def frame_from_center(cx: float, cy: float, w: float, h: float) -> tuple[float, 
     return (cx - w / 2.0, cy - h / 2.0, cx + w / 2.0, cy + h / 2.0)
 
 
-def frames_array(elements: Sequence[Element]) -> np.ndarray:
-    """N x 4 float array of the elements' frames."""
-    if not elements:
-        return np.zeros((0, 4))
-    return np.array([e.frame for e in elements], dtype=float)
-
-
-def angles_array(elements: Sequence[Element]) -> np.ndarray:
-    """N array of angles in degrees, NaN where unknown."""
-    return np.array([np.nan if e.angle is None else e.angle for e in elements], dtype=float)
 
 
 def outline(element: Element) -> np.ndarray:

@@ -15,7 +15,6 @@ Limits (pixels, pages, password) are enforced here, before anything large is dec
 from __future__ import annotations
 
 import contextlib
-import io
 import os
 import warnings
 from dataclasses import dataclass, field
@@ -537,12 +536,3 @@ def render_page_image(source: str, page: int, dpi: float, limits: ReadLimits = R
     if isinstance(out, PageError):
         raise InputError(out.message)
     return out.image
-
-
-def image_to_png_bytes(image: np.ndarray) -> bytes:
-    """Compressed PNG of a grey image."""
-    from PIL import Image
-
-    buf = io.BytesIO()
-    Image.fromarray(image).save(buf, format="PNG", optimize=True)
-    return buf.getvalue()

@@ -8,7 +8,7 @@ from dataclasses import asdict, dataclass, fields
 import numpy as np
 
 from .consensus import Match
-from .elements import MM_PER_POINT
+
 
 #: Most severe first; a page's verdict is the most severe of its findings.
 VERDICTS = ("error", "unrecognised", "mismatched", "rescaled", "skewed", "shifted", "pass")
@@ -173,7 +173,3 @@ def offending(match: Match) -> list[dict]:
                     "offset_mm": None if e.offset_mm is None else [round(v, 2) for v in e.offset_mm],
                     "size_ratio": None if e.size_ratio is None else round(e.size_ratio, 4)})
     return out
-
-
-def points_tolerance(tolerances: Tolerances) -> float:
-    return tolerances.element_tolerance_mm / MM_PER_POINT

@@ -2,7 +2,8 @@
 
 Forms: the five distinct form pages of the bundled sample forms. Faults are planted in the PDF
 before scanning, by an overlay that paints a standalone box out (white, wider than its rules)
-and, for a moved or shrunk box, draws it again at its new place or size.
+and, for a moved or shrunk box, draws it again at its new place or size (a moved box stays
+15 mm inside the sheet).
 """
 
 from __future__ import annotations
@@ -119,8 +120,10 @@ def planted_pdf(case: Case, template, out_dir: Path) -> Path:
     c.setStrokeColorRGB(0, 0, 0)
     c.setLineWidth(0.8)
     if case.fault == "moved":
+        # The moved box stays 15 mm inside the sheet, so the scan's shift and turn (up to 6 mm
+        # and 5 degrees) keep all of it on the image: a box cut by the image's edge is missing.
         d = case.fault_mm * MM
-        dx = d if x1 + d < w - 20 else -d
+        dx = d if x1 + d <= w - 15 * MM else -d
         c.rect(x0 + dx, h - bottom, x1 - x0, bottom - top)
     elif case.fault == "resized":
         cx, cy = (x0 + x1) / 2, (top + bottom) / 2

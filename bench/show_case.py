@@ -13,7 +13,7 @@ sc = scan(c, t, Path("/tmp"))
 from PIL import Image; Image.fromarray(sc.image).save(f"/tmp/case{idx}.png")
 page = RasterPage("x", 1, sc.image, sc.dpi, sc.bitonal)
 found = extract(page)
-rec = record_for("x", 1, found, [t], CheckSettings())
+rec = record_for("x", 1, found, [t], CheckSettings(), page=page)
 print(rec["verdict"], rec["pose"])
 for o in rec["offending"]: print(o)
 tp = t.pages[c.page-1]

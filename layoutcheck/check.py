@@ -250,6 +250,8 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         msg = "no template page to compare with"
         rec = error_record(source, page_no, f"{where(source, page_no)}: {msg}")
         return rec
+    if isinstance(page, RasterPage) and match.pose is not None:
+        found, match = look_again(page, found, tp, match, settings)
     verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size)
     recognised = verdict != "unrecognised"
     rec = {
@@ -275,6 +277,37 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
     if settings.zones or settings.normalise_dir:
         handoff(rec, page, found, tp, match, settings)
     return rec
+
+
+def look_again(page: RasterPage, found: PageElements, tp: TemplatePage, match: Match,
+               settings: CheckSettings) -> tuple[PageElements, Match]:
+    """Look again, at the place the pose predicts, for the offending rules and boxes of a scan.
+
+    What the second look finds (:func:`layoutcheck.extract.look.second_look`) is added to the
+    found elements and the page is matched again, so those elements are judged like any other.
+    Pages with nothing offending, or whose second look finds nothing new, are returned as they
+    are.
+    """
+    from .extract.look import LOOK_KINDS, second_look
+
+    wanted = {r.id for r in match.elements
+              if r.judged and r.status != "ok" and r.kind in LOOK_KINDS and not r.in_moved_section}
+    if not wanted:
+        return found, match
+    expected = [e for e in tp.elements_for(found.source) if e.id in wanted]
+    looked = [e for e in second_look(page.image, page.dpi, expected, match.pose) if e is not None]
+    near = 0.5 / MM_PER_POINT
+    new = []
+    for e in looked:
+        c, s = np.array(e.center), np.array(e.size)
+        if not any(f.kind_class == e.kind_class and np.all(np.abs(np.array(f.center) - c) < near)
+                   and np.all(np.abs(np.array(f.size) - s) < near) for f in found.elements):
+            new.append(e.replace(id=f"look-{len(new) + 1:03d}"))
+    if not new:
+        return found, match
+    more = PageElements(found.width, found.height, found.elements + tuple(new), source=found.source,
+                        note=f"{found.note}; second look: {len(new)} found".lstrip("; "))
+    return more, match_page(tp, more, settings)
 
 
 #: Verdicts whose page is the form in a known pose, so it can be normalised.

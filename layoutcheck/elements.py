@@ -67,7 +67,8 @@ class Element:
     caption : str or None
         Nearest label text, so a person reads "box 'Vessel name' (box-017)".
     source : str
-        ``"vector"`` or ``"raster"``.
+        ``"vector"``, ``"raster"``, or ``"look"`` (found on a scan by the second look at the
+        place the page pose predicts, see :mod:`layoutcheck.extract.look`).
     """
 
     id: str

@@ -270,10 +270,13 @@ def _image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
     if dpi is None:
         return PageError(source, n, f"{where(source, n)}: resolution unknown (the file states no dpi, or one below 72); give --dpi N")
     try:
-        # A frame of a multi-page file is copied as it is read: seeking on reuses the buffer.
+        # A frame of a multi-page file is copied as it is read (seeking on reuses the buffer):
+        # the array below is that copy. EXIF orientation is applied only when the file has one.
         frame.load()
         bitonal = frame.mode == "1"
-        im = ImageOps.exif_transpose(frame.copy())
+        im = frame
+        if _exif_orientation(frame) not in (None, 1):
+            im = ImageOps.exif_transpose(frame)
         if im.mode not in ("L", "1"):
             if im.mode in ("RGBA", "LA", "P", "PA"):
                 # Transparent parts of a page are paper: composite on white before going grey.
@@ -284,10 +287,20 @@ def _image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
             im = im.convert("L")
         elif im.mode == "1":
             im = im.convert("L")
-        arr = np.asarray(im, dtype=np.uint8).copy()
+        # Pillow hands the pixels over as a bytes copy of its buffer: the array is the page's own
+        # (read-only: nothing downstream writes into a page).
+        arr = np.asarray(im, dtype=np.uint8)
     except Exception as exc:
         return PageError(source, n, f"{where(source, n)}: image data is damaged ({_one_line(exc)})")
     return RasterPage(source, n, arr, float(dpi), bitonal)
+
+
+def _exif_orientation(frame) -> int | None:
+    """The EXIF orientation tag (0x0112) of an image, or None when it has none."""
+    try:
+        return frame.getexif().get(0x0112)
+    except Exception:
+        return None
 
 
 # -- PDFs -----------------------------------------------------------------------------------------

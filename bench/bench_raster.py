@@ -45,6 +45,8 @@ from layoutcheck.pose import Pose  # noqa: E402
 from layoutcheck.simulate import render_page, save_scan, simulate_scan  # noqa: E402
 from layoutcheck.sources import RasterPage  # noqa: E402
 
+OUT = os.path.join(HERE, "results", "raster.md")
+
 
 def timed(fn, repeats: int) -> float:
     """Median wall time of ``fn()`` in milliseconds (one warm-up run first)."""
@@ -151,25 +153,35 @@ def main() -> None:
     ap.add_argument("--quick", action="store_true")
     args = ap.parse_args()
     cv2.setNumThreads(1)
+    lines: list[str] = []
+
+    def emit(text: str = "") -> None:
+        print(text)
+        lines.append(text)
+
     with tempfile.TemporaryDirectory(prefix="bench_raster_") as tmp:
         pdf = os.path.join(tmp, "kbh210.pdf")
         make_form_pdf(pdf)
         repeats = 5 if args.quick else 15
-        print(f"## Raster extraction speed (A4 at 300 dpi, one thread, median of {repeats})\n")
-        print("| step | ms |")
-        print("|---|---:|")
+        emit(f"## Raster extraction speed (A4 at 300 dpi, one thread, median of {repeats})\n")
+        emit("| step | ms |")
+        emit("|---|---:|")
         for name, ms in speed(pdf, repeats, tmp):
-            print(f"| {name} | {ms:.1f} |")
+            emit(f"| {name} | {ms:.1f} |")
         rows = precision(pdf, args.quick)
-    print("\n## Raster extraction precision (similarity fit to paired corners, truth pairing)\n")
-    print("| dpi | turn (deg) | scale | noise | JPEG q | elements | rotation error (deg) | scale error (%) |")
-    print("|---:|---:|---:|---:|---:|---:|---:|---:|")
+    emit("\n## Raster extraction precision (similarity fit to paired corners, truth pairing)\n")
+    emit("| dpi | turn (deg) | scale | noise | JPEG q | elements | rotation error (deg) | scale error (%) |")
+    emit("|---:|---:|---:|---:|---:|---:|---:|---:|")
     for dpi, rot, sc, noise, q, n, re, se in rows:
-        print(f"| {dpi} | {rot:+.1f} | {sc:.4f} | {noise:.1f} | {q} | {n} | {re:.4f} | {se:.4f} |")
+        emit(f"| {dpi} | {rot:+.1f} | {sc:.4f} | {noise:.1f} | {q} | {n} | {re:.4f} | {se:.4f} |")
     re = np.array([r[6] for r in rows])
     se = np.array([r[7] for r in rows])
-    print(f"\nrotation error: median {np.median(re):.4f} deg, max {re.max():.4f} deg; "
+    emit(f"\nrotation error: median {np.median(re):.4f} deg, max {re.max():.4f} deg; "
           f"scale error: median {np.median(se):.4f} %, max {se.max():.4f} % over {len(rows)} scans")
+    if not args.quick:
+        os.makedirs(os.path.dirname(OUT), exist_ok=True)
+        with open(OUT, "w", encoding="utf-8") as fh:
+            fh.write("\n".join(lines) + "\n")
 
 
 if __name__ == "__main__":

@@ -6,7 +6,7 @@ from layoutcheck.check import learn, extract, record_for, CheckSettings
 from layoutcheck.sources import RasterPage
 idx = int(sys.argv[1])
 templates = {p.name: learn([str(p)]) for p in sorted(REFS.glob("*.pdf"))}
-cases = make_cases(templates, 100)
+import os; cases = make_cases(templates, int(os.environ.get("N", 100)), int(os.environ.get("SEED", 7)))
 c = cases[idx]; print(c)
 t = templates[c.form]
 sc = scan(c, t, Path("/tmp"))

@@ -85,6 +85,10 @@ class SolverSettings:
     vote_budget: int = 6000
     #: Farthest a section may have moved as one and still be found (40 mm).
     section_reach: float = 113.4
+    #: In the final assignment, points of distance one unit of |log(found size / expected size)|
+    #: costs (2 mm for a size off by a factor e): of two partners about as near, the one of the
+    #: expected size is taken.
+    size_cost: float = 5.67
 
 
 @dataclass(frozen=True)
@@ -861,14 +865,19 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
         judged = judged & _on_page(tmpl_els, shift_t, pose, page_size)
     # Near partners first; then the elements left over look farther, among the inputs left over
     # (a moved box is found as moved, up to the status gate, without enlarging every problem).
-    final = assign(pred, inp.centers, *spatial_pairs(pred, tmpl, inp, settings.refine_gate, pose.scale, settings),
-                   settings.refine_gate)
+    # Among partners about as near, the one of the expected size: a cell and the three cells
+    # merged around it (a rule between them lost) share a centre.
+    def sized(gate, ti, ii):
+        extra = settings.size_cost * np.abs(np.log(size_ratios(tmpl, inp, ti, ii, pose)))
+        return assign(pred, inp.centers, ti, ii, gate, cost_extra=extra)
+
+    final = sized(settings.refine_gate, *spatial_pairs(pred, tmpl, inp, settings.refine_gate, pose.scale, settings))
     left = np.flatnonzero(final < 0)
     if len(left):
         free = np.ones(len(inp.centers), bool)
         free[final[final >= 0]] = False
-        far = assign(pred, inp.centers, *spatial_pairs(pred, tmpl, inp, settings.status_gate, pose.scale, settings,
-                                                       only=left, free=free), settings.status_gate)
+        far = sized(settings.status_gate, *spatial_pairs(pred, tmpl, inp, settings.status_gate, pose.scale, settings,
+                                                         only=left, free=free))
         final[left] = far[left]
     results = []
     ok_mask = np.zeros(n, bool)

@@ -85,12 +85,14 @@ def test_side_not_found_beyond_reach_or_on_paper():
 
 def test_a_line_of_text_is_not_a_rule():
     # Printed text where a rule is expected: its baseline row holds ink along much of the line,
-    # but the letters above it leave no paper along the rule's side.
+    # but the letters above it leave no paper along the rule's edge.
     img = _canvas()
     cv2.putText(img, "Port of loading   Port of discharge   Date of sailing", (100, 405), cv2.FONT_HERSHEY_SIMPLEX,
                 1.0, 0, 2, cv2.LINE_AA)
+    e = Element("hline-001", "hline", (100 / PT, 403.5 / PT, 1000 / PT, 404.5 / PT), angle=0.0)
+    assert second_look(img, DPI, [e], Pose.identity()) == [None]
     p, q = np.array([100.0, 404.0]), np.array([1000.0, 404.0])
-    assert measure_side(img, p, q, reach=12.0, span=(0.0, 1.0), cover=0.3, mm_px=MM, extent=True) in (None, COVERED)
+    assert measure_side(img, p, q, reach=12.0, span=(0.0, 1.0), cover=0.2, mm_px=MM, extent=True) is None
 
 
 def test_broken_thin_rule_is_confirmed_with_its_extent():

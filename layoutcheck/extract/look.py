@@ -45,8 +45,9 @@ class LookSettings:
     side_cover: float = 0.7
     #: The same for a ruling line over its whole predicted length: a thin rule (0.5 point)
     #: scanned at 200 dpi and thresholded to black and white breaks into dashes that hold a
-    #: third of its length, and a rule with paper along both sides is not met by chance.
-    line_cover: float = 0.3
+    #: third of its length, a fifth after strong JPEG compression; a rule with paper along both
+    #: edges over its whole length is not met by chance.
+    line_cover: float = 0.2
     #: Ink beside the rule (0.3 mm to 0.8 mm off its edge) at most this share of the rule's own:
     #: a rule has paper along it, a line of text or a filled area does not.
     beside: float = 0.35

@@ -272,6 +272,11 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         "elapsed_ms": round((time.perf_counter() - t0) * 1000, 2),
         "error": None,
     }
+    if found.source == "raster":
+        # Template elements found only by the second look (under a stamp, across a tick, a rule
+        # broken by thresholding): in place, but worth a glance when the page is reviewed.
+        rec["second_look"] = [r.id for r in match.elements if r.input_index is not None
+                              and found.elements[r.input_index].source == "look"] if recognised else []
     if not recognised:
         rec["findings"][0]["message"] += f" (closest: {template.name} page {tp.number})"
     if settings.zones or settings.normalise_dir:

@@ -194,6 +194,7 @@ def test_record_of_a_scan_with_a_stamped_checkbox_has_nothing_offending(kbh101):
     assert lost.get(target.id) in ("missing", "resized", "moved")  # the planted fault bites
     rec = record_for(page.source, 1, found, [kbh101], CheckSettings(), page=page)
     assert rec["offending"] == []
+    assert rec["second_look"] == [target.id]
     assert rec["verdict"] == "skewed"
     assert abs(rec["pose"]["rotation_deg"] - (-1.8)) <= 0.02
 
@@ -210,4 +211,5 @@ def test_record_of_a_scan_with_a_checkbox_painted_out_names_it_missing(kbh101):
     page = RasterPage("painted.png", 1, img, scan.dpi)
     rec = record_for(page.source, 1, extract(page), [kbh101], CheckSettings(), page=page)
     assert [(o["id"], o["status"]) for o in rec["offending"]] == [(target.id, "missing")]
+    assert target.id not in rec["second_look"]
     assert rec["verdict"] == "mismatched"

@@ -415,3 +415,14 @@ def test_normalised_page_is_shown_with_its_zones(tmp_path, templates):
     assert pts[0] == pytest.approx((x0, top), abs=0.05) and pts[2] == pytest.approx((x1, bottom), abs=0.05)
     img = sections[0].find("img")
     assert img.attrs["src"].startswith("data:image/")
+
+
+def test_elements_found_on_a_second_look_are_named(tmp_path, records, templates):
+    k = by_source(records, "101_old_revision.pdf")
+    rec = json.loads(json.dumps(records[k]))
+    rec["second_look"] = ["checkbox-003", "<b>x</b>"]
+    rec["source"] = "inputs/101_old_revision.pdf"
+    out = write_report(tmp_path / "r.html", [rec], templates, Tolerances(), base_dir=SAMPLES)
+    raw = out.read_text(encoding="utf-8")
+    assert "Found only on a second look at their expected place" in raw
+    assert "checkbox-003, &lt;b&gt;x&lt;/b&gt;." in raw

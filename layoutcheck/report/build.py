@@ -352,6 +352,11 @@ def page_view(index: int, rec: dict, templates: dict, tol: Tolerances, base_dir,
         if s.get("status") == "partial":
             view["sections"].append(clean(f"Section '{s.get('name')}' ({s.get('id')}): "
                                           f"{s.get('support', 0):.0%} of its elements in place"))
+    looked = [clean(str(i)) for i in rec.get("second_look") or []]
+    if looked:
+        view["sections"].append(("Found only on a second look at their expected place (under a stamp, across a "
+                                 "tick, or a rule broken in the scan): " + ", ".join(looked)
+                                 + ". They are in place; a glance confirms it."))
     if with_images and rec.get("page") is not None:
         _add_picture(view, rec, templates, base_dir)
     view["handoff"] = handoff_view(rec, base_dir) if with_images else None

@@ -267,3 +267,23 @@ def test_section_moved_as_one(form):
     # The page pose comes from the body alone.
     assert m.pose.rotation_deg == pytest.approx(ROT, abs=1e-6)
     assert m.pose.scale == pytest.approx(SCALE, abs=1e-7)
+
+
+@pytest.mark.parametrize("merged_first", [True, False])
+def test_partner_of_the_expected_size_wins_a_shared_centre(form, merged_first):
+    # A box found twice around the same centre: as itself, and merged with the boxes above and
+    # below it into one three times as tall (the rules between them lost in a scan). The box is
+    # matched to its own size, in place; the merged one is extra ink. Both input orders.
+    els, _ = form
+    target = next(e for e in els if e.kind == "box" and e.size[1] > 15 and 200 < e.center[1] < 600)
+    inp = mapped(els, POSE)
+    k = next(i for i, e in enumerate(els) if e.id == target.id)
+    x0, top, x1, bottom = target.frame
+    h = bottom - top
+    merged = mapped([target.replace(id="merged", frame=(x0, top - h, x1, bottom + h))], POSE)[0]
+    inp = [merged] + inp if merged_first else inp + [merged]
+    m = solve(els, inp)
+    r = next(r for r in m.elements if r.id == target.id)
+    assert r.status == "ok"
+    assert inp[r.input_index] is not merged
+    assert r.input_index == (k + 1 if merged_first else k)

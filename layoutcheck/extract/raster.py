@@ -220,7 +220,13 @@ def binarise(image: np.ndarray, dpi: float = 300.0, settings: RasterSettings = R
     """
     img = np.ascontiguousarray(image, dtype=np.uint8)
     if background_spread(img, dpi) <= settings.uniform_background:
-        return _otsu(img)[1], "otsu"
+        if img.size <= 4_000_000:
+            return _otsu(img)[1], "otsu"
+        # Otsu's threshold from every other row and column (a quarter of the pixels, evenly
+        # spread: the same threshold to a grey level), applied to the whole page.
+        t = _otsu(img[::2, ::2])[0]
+        _, ink = cv2.threshold(img, t, 1, cv2.THRESH_BINARY_INV)
+        return ink.view(bool), "otsu"
     mask = sauvola_mask(img, int(round(px(settings.sauvola_window_mm, dpi))), settings.sauvola_k, settings.sauvola_r)
     # Paper-bright pixels are never ink, whatever the local statistics say (flat bright areas).
     mask &= img < 250
@@ -228,7 +234,7 @@ def binarise(image: np.ndarray, dpi: float = 300.0, settings: RasterSettings = R
 
 
 # -- skew -------------------------------------------------------------------------------------
-def estimate_skew(mask: np.ndarray, max_skew_deg: float = 10.0, max_points: int = 12_000) -> float:
+def estimate_skew(mask: np.ndarray, max_skew_deg: float = 10.0, max_points: int = 8_000) -> float:
     """Coarse page skew, degrees in ``(-45, 45]`` modulo 90, y-down (positive looks clockwise).
 
     For candidate angles the ink pixels are projected across and along the angle; rules and
@@ -484,6 +490,10 @@ def _meets_both(rows: np.ndarray, cross: np.ndarray, reach: float) -> np.ndarray
     return at_lo.any(1) & at_hi.any(1)
 
 
+#: Columns sampled per rule at most, in the steering passes and in the last one (see _fit_rules).
+_FIT_COLUMNS = (100, 250)
+
+
 def _fit_rules(grey: np.ndarray, mask: np.ndarray, p0: np.ndarray, p1: np.ndarray, half: np.ndarray, passes: int = 2,
                share: float = 0.5, fixed: np.ndarray | None = None):
     """Sub-pixel fit of near-horizontal rules on the original image, all rules at once.
@@ -546,8 +556,8 @@ def _fit_rules(grey: np.ndarray, mask: np.ndarray, p0: np.ndarray, p1: np.ndarra
     # (the centroid of one column is good to a few hundredths of a pixel, so 250 of them place a
     # rule far better than the scan's own pixel grid).
     along = np.arange(len(all_line)) - start
-    stride_last = np.maximum(2, -(-counts // 250))
-    stride_first = np.maximum(3, -(-counts // 100))
+    stride_last = np.maximum(2, -(-counts // _FIT_COLUMNS[1]))
+    stride_first = np.maximum(3, -(-counts // _FIT_COLUMNS[0]))
     last_sel = along % stride_last[all_line] == 0
     first_sel = along % stride_first[all_line] == 0
     for p_i in range(passes):
@@ -746,24 +756,30 @@ def _square_edges(grey: np.ndarray, cen: np.ndarray, half: float, skew: float):
     t = np.arange(-0.75 * half, 0.75 * half + 1e-9, 0.5)
     step = 0.25
     d = np.arange(half - 4.0, half + 5.0, step)
-    out = {}
+    # The four sides top, bottom, left, right, sampled in one remap: (side, along, out).
+    nrm = np.stack([-ev, ev, -eu, eu])
+    tan = np.stack([eu, eu, ev, ev])
     # A side turned by theta (y-down) moves its outward distance by sign * t * tan(theta).
-    for name, nrm, tan, sign in (("top", -ev, eu, -1.0), ("bottom", ev, eu, 1.0),
-                                 ("left", -eu, ev, 1.0), ("right", eu, ev, -1.0)):
-        p = cen[None, None, :] + t[:, None, None] * tan + d[None, :, None] * nrm
-        g = cv2.remap(grey, p[..., 0].astype(np.float32), p[..., 1].astype(np.float32), cv2.INTER_LINEAR,
-                      borderMode=cv2.BORDER_REPLICATE).astype(float)
-        ink, paper = np.median(g[:, :3]), np.median(g[:, -3:])
-        if paper - ink < 40:
-            return None
-        cov = np.clip((paper - g) / (paper - ink), 0.0, 1.0)
-        e = d[0] + cov.sum(1) * step
-        slope, e0 = np.polyfit(t, e, 1)
-        out[name] = (e0, sign * math.degrees(math.atan(slope)))
-    theta = float(np.mean([v[1] for v in out.values()]))
-    ww = out["left"][0] + out["right"][0]
-    hh = out["top"][0] + out["bottom"][0]
-    cen = cen + eu * (out["right"][0] - out["left"][0]) / 2.0 + ev * (out["bottom"][0] - out["top"][0]) / 2.0
+    sign = np.array([-1.0, 1.0, 1.0, -1.0])
+    p = cen + t[None, :, None, None] * tan[:, None, None, :] + d[None, None, :, None] * nrm[:, None, None, :]
+    g = cv2.remap(grey, p[..., 0].reshape(4 * len(t), len(d)).astype(np.float32),
+                  p[..., 1].reshape(4 * len(t), len(d)).astype(np.float32), cv2.INTER_LINEAR,
+                  borderMode=cv2.BORDER_REPLICATE).astype(float).reshape(4, len(t), len(d))
+    ink = np.median(g[:, :, :3].reshape(4, -1), axis=1)
+    paper = np.median(g[:, :, -3:].reshape(4, -1), axis=1)
+    if (paper - ink < 40).any():
+        return None
+    cov = np.clip((paper[:, None, None] - g) / (paper - ink)[:, None, None], 0.0, 1.0)
+    e = d[0] + cov.sum(2) * step  # (side, along): the edge's distance from the centre
+    # A line e = e0 + slope * t per side (least squares; t is symmetric about 0).
+    tc = t - t.mean()
+    slope = (e * tc).sum(1) / (tc * tc).sum()
+    e0 = e.mean(1) - slope * t.mean()
+    theta = float(np.mean(sign * np.degrees(np.arctan(slope))))
+    top, bottom, left, right = e0
+    ww = left + right
+    hh = top + bottom
+    cen = cen + eu * (right - left) / 2.0 + ev * (bottom - top) / 2.0
     return cen, ww, hh, theta
 
 

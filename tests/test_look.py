@@ -25,7 +25,7 @@ ROOT = Path(__file__).resolve().parent.parent
 REF101 = ROOT / "sample_forms" / "references" / "KBH-101_vessel_arrival.pdf"
 DPI = 200.0
 PT = DPI / 72.0  # px per point (the PDF unit is 1/72 in: ISO 32000-1, 8.3.2.3)
-MM = DPI / 25.4  # px per mm
+MM = DPI / 25.4  # px per mm (1 in = 25.4 mm exactly, by definition)
 
 
 def _canvas(w=1200, h=900):
@@ -49,6 +49,18 @@ def _draw_box(img, e: Element, pose: Pose = Pose.identity(), width=2):
     for k in range(4):
         _aa_line(img, c[k], c[(k + 1) % 4], width)
     return c
+
+
+def _stamp_on(img, c, mm_px, shade=40, thick_mm=1.6, overhang=3):
+    """A solid stamp letter lying on a box's top side (corners ``c`` in px), ``overhang`` px past
+    both its ends; a new image."""
+    u = (c[1] - c[0]) / np.hypot(*(c[1] - c[0]))
+    n = np.array([u[1], -u[0]])
+    up = thick_mm * mm_px * n
+    bar = np.array([c[0] - overhang * u, c[1] + overhang * u, c[1] + overhang * u + up, c[0] - overhang * u + up])
+    out = img.copy()
+    cv2.fillPoly(out, [np.round(bar - 0.5).astype(np.int32)], shade)
+    return out
 
 
 # -- one side ---------------------------------------------------------------------------------
@@ -122,10 +134,7 @@ def test_box_with_a_stamp_letter_on_one_side_and_a_tick_inside():
     pose = Pose.from_params(rotation_deg=2.0, center=e.center)
     c = _draw_box(img, e, pose)
     # The stamp's letter: a solid bar over the top side, 1.5 mm thick, sitting on it.
-    u = (c[1] - c[0]) / np.hypot(*(c[1] - c[0]))
-    n = np.array([u[1], -u[0]])
-    bar = np.array([c[0] - 2 * u, c[1] + 2 * u, c[1] + 2 * u + 1.5 * MM * n, c[0] - 2 * u + 1.5 * MM * n])
-    cv2.fillPoly(img, [np.round(bar - 0.5).astype(np.int32)], 60)
+    img = _stamp_on(img, c, MM, shade=60, thick_mm=1.5, overhang=2)
     # The tick: an X from corner to corner, 3 px wide.
     _aa_line(img, c[0] + 3 * (c[2] - c[0]) / 40, c[2] - 3 * (c[2] - c[0]) / 40, width=4)
     _aa_line(img, c[1] + 3 * (c[3] - c[1]) / 40, c[3] - 3 * (c[3] - c[1]) / 40, width=4)
@@ -167,16 +176,6 @@ def test_box_shrunk_is_measured_at_its_size():
 @pytest.fixture(scope="module")
 def kbh101():
     return learn([str(REF101)])
-
-
-def _stamp_on(img, c, mm_px, shade=40):
-    """A solid stamp letter over a checkbox's top side (corners ``c`` in px)."""
-    u = (c[1] - c[0]) / np.hypot(*(c[1] - c[0]))
-    n = np.array([u[1], -u[0]])
-    bar = np.array([c[0] - 3 * u, c[1] + 3 * u, c[1] + 3 * u + 1.6 * mm_px * n, c[0] - 3 * u + 1.6 * mm_px * n])
-    out = img.copy()
-    cv2.fillPoly(out, [np.round(bar - 0.5).astype(np.int32)], shade)
-    return out
 
 
 def test_record_of_a_scan_with_a_stamped_checkbox_has_nothing_offending(kbh101):

@@ -98,16 +98,14 @@ def second_look(grey: np.ndarray, dpi: float, expected: Sequence[Element], pose:
 def _look_box(img, e: Element, c: np.ndarray, mm_px: float, scale: float, st: LookSettings) -> Element | None:
     """The four sides of a box (corners ``c`` clockwise from top-left, px), or None."""
     width, height = np.hypot(*(c[1] - c[0])), np.hypot(*(c[3] - c[0]))
-    sides: list[Side | None] = []
+    offsets: list[float | None] = []
     for k in range(4):
-        p, q = c[k], c[(k + 1) % 4]
         across = height if k % 2 == 0 else width
         reach = min(st.reach_mm * mm_px, st.reach_share * across)
-        side = measure_side(img, p, q, reach, (0.15, 0.85), st.side_cover, mm_px, st)
+        side = measure_side(img, c[k], c[(k + 1) % 4], reach, (0.15, 0.85), st.side_cover, mm_px, st)
         if side is None:
             return None
-        sides.append(None if side is COVERED else side)
-    offsets: list[float | None] = [None if s is None else s.offset for s in sides]
+        offsets.append(None if side is COVERED else side.offset)
     # One side may lie under other ink on both edges: the box then keeps its expected size across
     # that side, placed by the opposite side.
     covered = [k for k in range(4) if offsets[k] is None]
@@ -120,8 +118,7 @@ def _look_box(img, e: Element, c: np.ndarray, mm_px: float, scale: float, st: Lo
     for k in range(4):
         p, q = c[k], c[(k + 1) % 4]
         u = (q - p) / np.hypot(*(q - p))
-        n = np.array([u[1], -u[0]])
-        lines.append((p + offsets[k] * n, u))
+        lines.append((p + offsets[k] * np.array([u[1], -u[0]]), u))
     new = np.array([_meet(lines[k - 1], lines[k]) for k in range(4)])
     if not np.isfinite(new).all():
         return None

@@ -162,8 +162,12 @@ class Document:
 
 
 def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pages: set[int] | None = None) -> Document:
-    """Open one input file (PDF, PNG, JPEG, TIFF) and plan what it yields; never raises."""
-    source = str(path)
+    """Open one input file (PDF, PNG, JPEG, TIFF) and plan what it yields; never raises.
+
+    The document's ``source`` (and so every record's) is the absolute path of the file, so that
+    any reader of a record finds the file again whatever its own working folder.
+    """
+    source = record_path(path)
     p = Path(source)
     try:
         if not p.exists():
@@ -180,6 +184,11 @@ def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pa
         return _ImageDocument.open(source, limits, pages)
     except Exception as exc:  # last line of defence: a reader bug must not end the batch
         return _failed(source, f"could not be read ({type(exc).__name__}: {_one_line(exc)})")
+
+
+def record_path(path: str | os.PathLike) -> str:
+    """The form in which a file's path is written into records: absolute, links not resolved."""
+    return os.path.abspath(os.fspath(path))
 
 
 def _failed(source: str, what: str) -> Document:

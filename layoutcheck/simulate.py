@@ -324,8 +324,8 @@ def _draw_hand(img: np.ndarray, source_pdf, page: int, rdpi: float, rng: np.rand
     """Fill-in harsher than most offices see: ink that touches, crosses and continues rules.
 
     - Writing on most free rules (those shorter than 80 % of the page width), its descenders
-      crossing the rule; on some, a tail stroke lying along the rule that runs 3 to 12 mm past
-      its end, and on some the writing begins before the rule does.
+      crossing the rule; on some, a tail stroke that touches the rule's end and runs on along
+      its line for 3 to 12 mm, and on some the writing begins before the rule does.
     - On a rule captioned "Signature" (or "Issued by"), a signature: large loops across the rule,
       running past an end, and a flourish drawn along the rule.
     - In some boxes wider than 30 mm, a long, nearly straight stroke (a crossing-out or an
@@ -358,8 +358,8 @@ def _draw_hand(img: np.ndarray, source_pdf, page: int, rdpi: float, rng: np.rand
         b = a + rng.uniform(0.35, 0.9) * (x1 - a)
         strokes.append(_hand_line(a, b, y, rng.uniform(2.5, 4.0) * mm_, rng))
         if rng.random() < 0.5:
-            # A tail along the rule, off its end: the rule's inked run grows by it.
-            t0 = max(b, x1 - rng.uniform(5, 15) * mm_)
+            # A tail that touches the rule's end and runs on along it: the inked run grows by it.
+            t0 = x1 - rng.uniform(0.0, 1.5) * mm_
             tail = _near_straight(t0, x1 + rng.uniform(3, 12) * mm_, y + rng.uniform(-0.15, 0.15) * mm_, rng)
             tail[:, 1] = y + 0.3 * (tail[:, 1] - y)
             strokes.append(tail)

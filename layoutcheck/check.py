@@ -164,10 +164,10 @@ def printed_sort(page: RasterPage, found: PageElements) -> tuple[PageElements, t
     from .extract.raster.printed import sort_printed, trim_to_structure
 
     sorting = sort_printed(page.image, page.dpi, found.elements)
-    kept, cut = trim_to_structure(sorting.kept)
-    why = {**sorting.reasons, **cut}
-    return (PageElements(found.width, found.height, kept, source=found.source, note=found.note),
-            sorting.set_aside, why)
+    shaped = trim_to_structure(sorting.kept)
+    why = {**sorting.reasons, **shaped.reasons}
+    return (PageElements(found.width, found.height, shaped.kept, source=found.source, note=found.note),
+            sorting.set_aside + shaped.set_aside, why)
 
 
 def learning_summary(template: Template) -> list[str]:

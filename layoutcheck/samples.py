@@ -109,19 +109,19 @@ def consensus_elements(samples: Sequence[PageElements], settings: SolverSettings
 
 
 def _sample_pages(path: str, limits: ReadLimits, pages: set[int] | None, with_raster: bool):
-    """``(vector PageElements or None, raster PageElements or None, reasons)`` per page of one
-    sample file; the rules of a scanned page are cut to their printed span (see
-    :func:`layoutcheck.check.printed_sort`), and ``reasons`` says, per element id, why an element
-    looks like fill-in or was cut."""
+    """``(vector PageElements or None, raster PageElements or None, set aside, reasons)`` per
+    page of one sample file. A scanned page keeps only what looks printed, its rules cut to their
+    printed span (see :func:`layoutcheck.check.printed_sort`); ``reasons`` says, per element
+    id, why an element looks like fill-in or was cut."""
     from .check import printed_sort, reference_pages
 
     out = []
     for page, vec, ras in reference_pages(path, limits, pages, with_raster):
         why: dict = {}
+        aside: tuple = ()
         if vec is None and ras is not None:
-            kept, aside, why = printed_sort(page, ras)
-            ras = PageElements(ras.width, ras.height, kept.elements + aside, source=ras.source, note=ras.note)
-        out.append((vec, ras, why))
+            ras, aside, why = printed_sort(page, ras)
+        out.append((vec, ras, aside, why))
     return out
 
 
@@ -132,18 +132,23 @@ def single_sample_warning(set_aside: int) -> str:
             "makes the template sturdier")
 
 
-def _scan_page(k: int, base: PageElements, c: Consensus, n: int, section_names, reasons: dict) -> TemplatePage:
-    """A template page from the consensus of ``n`` scanned samples."""
+def _scan_page(k: int, base: PageElements, c: Consensus, n: int, section_names, reasons: dict,
+               aside: tuple = ()) -> TemplatePage:
+    """A template page from the consensus of ``n`` scanned samples; ``aside`` are the base
+    sample's elements that looked like fill-in before any consensus (seen on it only)."""
     from .check import LearnError
 
     elements = tuple(c.kept)
     if len(elements) < 3:
         raise LearnError(f"page {k + 1}: the good samples agree on only {len(elements)} elements")
+    dropped = tuple(c.dropped) + tuple(aside)
     why = {e.id: reasons.get(e.id) or f"found on {c.seen.get(e.id, 0)} of {n} samples" for e in c.dropped}
-    why.update({i: r for i, r in reasons.items() if i in {e.id for e in elements} and r.startswith("cut")})
+    kept = {e.id for e in elements}
+    why.update({i: r for i, r in reasons.items() if i in kept or any(e.id == i for e in aside)})
+    seen = {**{e.id: 1 for e in aside}, **c.seen}
     sections = find_sections(elements, base.width, base.height, section_names)
     tp = TemplatePage(k + 1, base.width, base.height, elements, sections, elements, slack=c.slack,
-                      unstable=tuple(c.unstable), set_aside=tuple(c.dropped), set_aside_why=why, samples=n, seen=c.seen)
+                      unstable=tuple(c.unstable), set_aside=dropped, set_aside_why=why, samples=n, seen=seen)
     return with_raster_sections(tp)
 
 
@@ -178,7 +183,7 @@ def learn_from_samples(paths: Sequence[str], name: str | None = None, pages: set
             if len(ras_sets) != len(paths):
                 raise LearnError("good samples mix born-digital and scanned pages; give one kind")
             out_pages.append(_scan_page(k, ras_sets[0], consensus(ras_sets), len(ras_sets), section_names,
-                                        per_sample[0][k][2]))
+                                        per_sample[0][k][3], per_sample[0][k][2]))
             continue
         if len(elements) < 3:
             raise LearnError(f"page {k + 1}: the good samples agree on only {len(elements)} elements")
@@ -207,7 +212,7 @@ def update_template(template: Template, paths: Sequence[str], limits: ReadLimits
     for p, s in zip(paths, per_sample):
         if len(s) != len(template.pages):
             raise LearnError(f"{where(p, None)}: {len(s)} page(s), but template {template.name} has {len(template.pages)}")
-        if any(vec is not None for vec, _, _ in s):
+        if any(vec is not None for vec, _, _, _ in s):
             raise LearnError(f"{where(p, None)}: a born-digital page; add scanned samples (or learn again from the blank PDF)")
     pages = []
     for k, tp in enumerate(template.pages):

@@ -359,7 +359,7 @@ def _draw_hand(img: np.ndarray, source_pdf, page: int, rdpi: float, rng: np.rand
         strokes.append(_hand_line(a, b, y, rng.uniform(2.5, 4.0) * mm_, rng))
         if rng.random() < 0.5:
             # A tail that touches the rule's end and runs on along it: the inked run grows by it.
-            t0 = x1 - rng.uniform(0.0, 1.5) * mm_
+            t0 = x1 - rng.uniform(0.0, 0.5) * mm_
             tail = _near_straight(t0, x1 + rng.uniform(3, 12) * mm_, y + rng.uniform(-0.15, 0.15) * mm_, rng)
             tail[:, 1] = y + 0.3 * (tail[:, 1] - y)
             strokes.append(tail)

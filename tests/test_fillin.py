@@ -292,9 +292,12 @@ def test_trim_to_structure_stops_a_rule_at_the_box_it_runs_into():
     over = Element("h2", "hline", (220.0, 149.8, 302.8, 150.2), 0.0, source="raster")
     # Runs 10 mm past the crossing: a rule that goes on, left alone.
     far = Element("h3", "hline", (220.0, 159.8, 328.3, 160.2), 0.0, source="raster")
-    out, why = trim_to_structure([box, along, v, over, far])
-    got = {e.id: e.frame for e in out}
+    # The box's left side, run on 12 pt below the box by a stroke touching it: the box's side.
+    side = Element("v2", "vline", (99.8, 50.0, 100.2, 92.0), 0.0, source="raster")
+    s = trim_to_structure([box, along, v, over, far, side])
+    got = {e.id: e.frame for e in s.kept}
     assert got["h1"] == (20.0, 49.8, 100.0, 50.2)
     assert got["h2"] == (220.0, 149.8, 300.0, 150.2)
     assert got["h3"] == far.frame and got["b"] == box.frame
-    assert set(why) == {"h1", "h2"}
+    assert [e.id for e in s.set_aside] == ["v2"] and s.reasons["v2"].startswith("the side of box (b)")
+    assert set(s.reasons) == {"h1", "h2", "v2"}

@@ -37,11 +37,16 @@ from ...elements import MM_PER_POINT, POINTS_PER_INCH, Element, frame_from_cente
 class PrintedSettings:
     """When an element is taken for fill-in. Sizes in mm."""
 
-    #: Fit residual above which a rule is wavy (a pen's bow and tremor); printed rules measure
-    #: under 0.03 mm on the simulated scans at 200 dpi with blur, noise and JPEG (bench_fillin).
-    wavy_mm: float = 0.06
-    #: Fit residual above which a rule is fill-in even if it lines up with other elements.
-    very_wavy_mm: float = 0.15
+    #: Fit residual above which a rule that lines up with nothing is fill-in, mm. Printed rules
+    #: measure at most 0.018 mm on the filled scans of bench/bench_fillin.py (200 dpi, grey,
+    #: blur, noise; signature rules with a signature and its flourish across them included),
+    #: long strokes written by hand at least 0.038 mm.
+    wavy_mm: float = 0.022
+    #: Fit residual above which a rule is fill-in even if it lines up with other elements, mm.
+    very_wavy_mm: float = 0.03
+    #: Allowance added to both on a bitonal scan, pixels: a rule's centre there moves in whole
+    #: pixels along a turned rule (a staircase), which a grey scan spreads over the pixel.
+    bitonal_px: float = 0.3
     #: Stroke spread (interquartile range of the ink mass over its median) above which a rule's
     #: stroke is uneven; printed rules stay under 0.2.
     uneven: float = 0.45
@@ -53,11 +58,20 @@ class PrintedSettings:
     mass_factor: float = 1.5
     #: Ink past the printed span shorter than this is left alone (blur, a corner), mm.
     min_trim_mm: float = 0.8
+    #: ... and longer than this too: a tail of writing runs on a few millimetres, while a rule
+    #: with a signature's flourish lying along a stretch of it looks the same from its ink, mm.
+    max_trim_mm: float = 15.0
     #: Chroma (CIELAB a*b* distance) from the page's print above which ink is fill-in, where the
     #: scan is in colour (common practice: ballpoint blue and stamp red sit far from black print).
     chroma: float = 15.0
     #: Rules whose end runs past a crossing side by no more than this are cut at the side, mm.
     corner_reach_mm: float = 1.5
+    #: A rule whose measured frame lies this far off its fitted line is put on the line, mm.
+    replace_mm: float = 0.15
+    #: How far from its measured frame a rule's own line is looked for, mm: a signature's
+    #: flourish merged with a rule pulls it by about half a millimetre; the side of a box that a
+    #: stroke written in it runs along is two millimetres away or more.
+    recentre_mm: float = 0.8
 
 
 @dataclass(frozen=True)
@@ -72,6 +86,8 @@ class LineInk:
     span: tuple[float, float]
     #: Mean CIELAB (a*, b*) of its ink, where the scan is in colour.
     ab: tuple[float, float] | None = None
+    #: Offset of the fitted line from the rule's frame, across it at its middle, points.
+    offset: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -131,7 +147,9 @@ def _profile(strip: np.ndarray, threshold: float, paper: float):
     # Clean: the run ends inside the strip and is no thicker than the rule's own stroke (ink that
     # touches it, a tick's arm, a letter's foot, thickens the run where it joins).
     length = (hi - lo + 1).astype(float)
-    typical = np.median(length[present]) if present.any() else 0.0
+    # The rule's own thickness is the thinner part of the runs: a pen's stroke lying along a rule
+    # (a signature's flourish) may cover more than half of it.
+    typical = np.percentile(length[present], 30) if present.any() else 0.0
     inside = present & (lo > 0) & (hi < rows - 1)
     clean = inside & (length <= 1.5 * typical + 1)
     # One row of anti-aliased fringe on either side belongs to the stroke.
@@ -182,17 +200,27 @@ def measure_line(grey: np.ndarray, dpi: float, e: Element, threshold: float, pap
     k = dpi / POINTS_PER_INCH
     along, across, length, stroke = _axes(e)
     centre = np.array(e.center) * k
-    half = stroke * k / 2.0 + settings.band_mm / MM_PER_POINT * k
+    band = settings.band_mm / MM_PER_POINT * k
+    half = stroke * k / 2.0 + band
+    # The rule is the row of the strip that ink fills along the most: a stroke that merged with
+    # the rule when it was measured (a signature's flourish) may have pulled its frame off it.
+    reach = settings.recentre_mm / MM_PER_POINT * k
+    wide, s = _strip(grey, centre, along, across, length * k, stroke * k / 2.0 + reach, paper)
+    fill = (wide < threshold).mean(1)
+    shift = float(np.argmax(fill) - wide.shape[0] // 2)
+    centre = centre + across * shift
     strip, s = _strip(grey, centre, along, across, length * k, half, paper)
     present, inside, clean, c, mass, run_len = _profile(strip, threshold, paper)
     use = clean & (mass > 0)
     if use.sum() < 5:
         return LineInk(np.inf, np.inf, float(present.mean()), (-length / 2.0, length / 2.0))
-    q1, med0, q3 = np.percentile(mass[use], [25, 50, 75])
-    spread = float((q3 - q1) / max(med0, 1e-6))
-    # The line is fitted on columns of the rule's own weight: where a pen's stroke merges with a
-    # rule along it (a signature's flourish), the centre is pulled but the ink is heavier too.
-    own = use & (mass <= settings.mass_factor * med0) & (mass >= med0 / settings.mass_factor)
+    # Spread over every column the stroke crosses the strip in: a rule that thickens is uneven.
+    q1, q3 = np.percentile(mass[inside], [25, 75])
+    spread = float((q3 - q1) / max(np.median(mass[inside]), 1e-6))
+    ref = np.percentile(mass[use], 30)
+    # The line is fitted on columns of the rule's own weight (the lighter part, as above): where
+    # a pen's stroke merges with a rule along it, the centre is pulled but the ink is heavier too.
+    own = use & (mass <= settings.mass_factor * ref) & (mass >= ref / settings.mass_factor)
     use = own if own.sum() >= 5 else use
     a, b, sig, keep = _line_fit(s[use], c[use])
     residual_mm = sig / k * MM_PER_POINT
@@ -207,7 +235,7 @@ def measure_line(grey: np.ndarray, dpi: float, e: Element, threshold: float, pap
         core &= use[None, :]
         if core.any():
             colour = (float(chans[0][core].mean()), float(chans[1][core].mean()))
-    return LineInk(float(residual_mm), spread, float(present.mean()), span, colour)
+    return LineInk(float(residual_mm), spread, float(present.mean()), span, colour, (shift + a) / k)
 
 
 def _printed_span(s, inside, clean, res, mass, run_len, med_mass, med_len, sig, k, settings) -> tuple[float, float]:
@@ -316,10 +344,16 @@ def sort_printed(grey: np.ndarray, dpi: float, elements, colour: np.ndarray | No
     """
     els = list(elements)
     threshold, paper = page_levels(grey)
+    bitonal = not np.any((grey > 0) & (grey < 255))
+    allowance = settings.bitonal_px / dpi * 25.4 if bitonal else 0.0
     ab = lab_ab(colour) if colour is not None else None
     tol = settings.align_mm / MM_PER_POINT
     structural = [e for e in els if e.kind_class in ("line", "box", "mark")]
     aligned = dict(zip((e.id for e in structural), alignment(structural, tol)))
+    # Edges of the printed structure a rule's end may stop at: other elements' sides and the left
+    # edges of labels (a caption under a signature rule starts where the rule does).
+    edges = [(e.id, *_edges(e)) for e in structural] + \
+        [(e.id, [e.frame[0]], [e.frame[1]]) for e in els if e.kind_class == "text"]
     inks: dict[str, list[LineInk]] = {}
     for e in els:
         if e.kind in ("hline", "vline"):
@@ -337,28 +371,60 @@ def sort_printed(grey: np.ndarray, dpi: float, elements, colour: np.ndarray | No
         if not ink:
             kept.append(e)
             continue
-        why = _fill_in_reason(e, ink, aligned.get(e.id, 0), print_ab, settings)
+        why = _fill_in_reason(e, ink, aligned.get(e.id, 0), print_ab, settings, allowance)
         if why:
             aside.append(e)
             reasons[e.id] = why
             continue
         if e.kind in ("hline", "vline"):
-            span = ink[0].span
-            _, _, length, _ = _axes(e)
+            span = _supported(e, ink[0].span, edges, settings)
+            along, across, length, _ = _axes(e)
+            if abs(ink[0].offset) * MM_PER_POINT >= settings.replace_mm:
+                dx, dy = across * ink[0].offset
+                x0, top, x1, bottom = e.frame
+                e = e.replace(frame=(x0 + dx, top + dy, x1 + dx, bottom + dy))
+                reasons[e.id] = f"put on its own line ({abs(ink[0].offset) * MM_PER_POINT:.2f} mm off: ink along it)"
             cut = (span[0] + length / 2.0, length / 2.0 - span[1])
             if max(cut) >= settings.min_trim_mm / MM_PER_POINT:
                 e = trim(e, span)
-                reasons[e.id] = f"cut to its printed span (ink touching it ran on {max(cut) * MM_PER_POINT:.1f} mm)"
+                said = reasons.get(e.id)
+                reasons[e.id] = ((said + "; ") if said else "") + \
+                    f"cut to its printed span (ink touching it ran on {max(cut) * MM_PER_POINT:.1f} mm)"
         kept.append(e)
     return Sorting(tuple(kept), tuple(aside), reasons)
 
 
-def _fill_in_reason(e: Element, ink: list[LineInk], aligned: int, print_ab, settings: PrintedSettings) -> str | None:
+def _supported(e: Element, span: tuple[float, float], edges, settings: PrintedSettings) -> tuple[float, float]:
+    """The printed span of a rule, kept to its measured end where the printed structure
+    supports that end (another element's edge in line with it), or where the ink beyond the
+    span runs on longer than a tail of writing does (``max_trim_mm``)."""
+    along, _, length, _ = _axes(e)
+    tol = settings.align_mm / MM_PER_POINT
+    horizontal = e.size[0] >= e.size[1]
+    ends = (e.frame[0], e.frame[2]) if horizontal else (e.frame[1], e.frame[3])
+    out = list(span)
+    for j, (end, half) in enumerate(zip(ends, (-length / 2.0, length / 2.0))):
+        if abs(half - span[j]) > settings.max_trim_mm / MM_PER_POINT:
+            out[j] = half
+            continue
+        for oid, xs, ys in edges:
+            if oid != e.id and any(abs(v - end) <= tol for v in (xs if horizontal else ys)):
+                out[j] = half
+                break
+    return out[0], out[1]
+
+
+def _fill_in_reason(e: Element, ink: list[LineInk], aligned: int, print_ab, settings: PrintedSettings,
+                    allowance_mm: float = 0.0) -> str | None:
     """Why an element looks written rather than printed, or None."""
+    wavy, very_wavy = settings.wavy_mm + allowance_mm, settings.very_wavy_mm + allowance_mm
     if e.kind in ("box", "checkbox"):
-        wavy = sum(i.residual_mm > settings.very_wavy_mm for i in ink)
-        if wavy >= 2:
-            return f"{wavy} of its sides are not straight"
+        # A tick across a checkbox leaves its sides straight (under 0.015 mm on the benchmark's
+        # scans); a loop of writing closed against a box's edge has a side twice as bent as a
+        # written rule may be.
+        worst = max(i.residual_mm for i in ink)
+        if worst > 2 * very_wavy:
+            return f"a side is not straight (off a straight line by {worst:.2f} mm)"
         far = [i for i in ink if i.ab is not None and print_ab is not None
                and np.hypot(*(np.array(i.ab) - print_ab)) > settings.chroma]
         if len(far) >= 3:
@@ -367,29 +433,29 @@ def _fill_in_reason(e: Element, ink: list[LineInk], aligned: int, print_ab, sett
     i = ink[0]
     if print_ab is not None and i.ab is not None and np.hypot(*(np.array(i.ab) - print_ab)) > settings.chroma:
         return "its ink is not the colour of the print"
-    if i.residual_mm > settings.very_wavy_mm:
+    if i.residual_mm > very_wavy:
         return f"not straight (off a straight line by {i.residual_mm:.2f} mm)"
     if not aligned:
-        if i.residual_mm > settings.wavy_mm:
+        if i.residual_mm > wavy:
             return f"not straight (off a straight line by {i.residual_mm:.2f} mm) and in line with nothing"
         if i.spread > settings.uneven:
             return f"uneven stroke (width varies by {100 * i.spread:.0f} %) and in line with nothing"
     return None
 
 
-def trim_to_structure(elements, settings: PrintedSettings = PrintedSettings()) -> tuple[tuple[Element, ...], dict]:
+def trim_to_structure(elements, settings: PrintedSettings = PrintedSettings()) -> Sorting:
     """Cut rules back to where the printed structure ends them.
 
-    A horizontal rule that runs on along a box's top or bottom edge stops at that box's side,
-    and one whose end overshoots a crossing vertical (a rule or a box's side) by no more than
-    ``corner_reach_mm`` stops at it; likewise for vertical rules. Returns the elements and, per
-    cut rule, the reason.
+    A rule lying for the most part along a box's edge is that box's side, run on by ink that
+    touches it: it is set aside. A rule that runs on along a box's edge (its larger part off the
+    box) stops at the box's side, and one whose end overshoots a crossing rule or box side by no
+    more than ``corner_reach_mm`` stops at it; likewise for vertical rules.
     """
     els = list(elements)
     reach = settings.corner_reach_mm / MM_PER_POINT
     tol = settings.align_mm / MM_PER_POINT
     boxes = [e for e in els if e.kind in ("box", "checkbox")]
-    out, reasons = [], {}
+    out, aside, reasons = [], [], {}
     for e in els:
         if e.kind not in ("hline", "vline"):
             out.append(e)
@@ -398,7 +464,26 @@ def trim_to_structure(elements, settings: PrintedSettings = PrintedSettings()) -
         x0, top, x1, bottom = e.frame
         lo, hi = (x0, x1) if horizontal else (top, bottom)
         pos = (top + bottom) / 2.0 if horizontal else (x0 + x1) / 2.0
-        # Crossings: positions along the rule where a perpendicular stroke of the structure meets it.
+        new_lo, new_hi = lo, hi
+        side_of = None
+        for b in boxes:
+            bx0, btop, bx1, bbottom = b.frame
+            edges, (s0, s1) = ((btop, bbottom), (bx0, bx1)) if horizontal else ((bx0, bx1), (btop, bbottom))
+            if min(abs(pos - v) for v in edges) > tol:
+                continue
+            if min(hi, s1) - max(lo, s0) >= 0.5 * (hi - lo):
+                side_of = b
+                break
+            # Collinear with a box's edge: the rule is not the box, it stops at the box's side.
+            if s0 - reach <= new_hi <= s1 + reach and new_lo < s0 - reach:
+                new_hi = min(new_hi, s0)
+            elif s0 - reach <= new_lo <= s1 + reach and new_hi > s1 + reach:
+                new_lo = max(new_lo, s1)
+        if side_of is not None:
+            aside.append(e)
+            reasons[e.id] = f"the side of {side_of.label()}, run on by ink touching it"
+            continue
+        # Crossings: places along the rule where a perpendicular stroke of the structure meets it.
         cross = []
         for o in els:
             if o is e:
@@ -412,17 +497,6 @@ def trim_to_structure(elements, settings: PrintedSettings = PrintedSettings()) -
                 a, b = (otop, obottom) if horizontal else (ox0, ox1)
                 if a - tol <= pos <= b + tol:
                     cross += [ox0, ox1] if horizontal else [otop, obottom]
-        new_lo, new_hi = lo, hi
-        for b in boxes:
-            bx0, btop, bx1, bbottom = b.frame
-            edges, (s0, s1) = ((btop, bbottom), (bx0, bx1)) if horizontal else ((bx0, bx1), (btop, bbottom))
-            if min(abs(pos - v) for v in edges) > tol:
-                continue
-            # Collinear with a box's edge: the rule is not the box, it stops at the box's side.
-            if s0 - reach <= new_hi <= s1 + reach and new_lo < s0 - reach:
-                new_hi = min(new_hi, s0)
-            elif s0 - reach <= new_lo <= s1 + reach and new_hi > s1 + reach:
-                new_lo = max(new_lo, s1)
         if cross:
             c = np.array(cross)
             over_hi = new_hi - c[(c <= new_hi) & (c >= new_hi - reach)]
@@ -437,4 +511,4 @@ def trim_to_structure(elements, settings: PrintedSettings = PrintedSettings()) -
             reasons[e.id] = f"cut to the structure that ends it ({(hi - lo - (new_hi - new_lo)) * MM_PER_POINT:.1f} mm)"
         else:
             out.append(e)
-    return tuple(out), reasons
+    return Sorting(tuple(out), tuple(aside), reasons)

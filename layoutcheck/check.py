@@ -159,11 +159,15 @@ def printed_sort(page: RasterPage, found: PageElements) -> tuple[PageElements, t
 
     Returns the printed elements (rules cut to their printed span and to the structure that ends
     them), the elements set aside, and per element id the reason it was set aside or cut (see
-    :mod:`layoutcheck.extract.raster.printed`).
+    :mod:`layoutcheck.extract.raster.printed`). The colour of a colour image file is a cue too.
     """
     from .extract.raster.printed import sort_printed, trim_to_structure
+    from .sources import read_colour
 
-    sorting = sort_printed(page.image, page.dpi, found.elements)
+    colour = None if str(page.source).lower().endswith(".pdf") else read_colour(page.source, page.page)
+    if colour is not None and colour.shape[:2] != page.image.shape:
+        colour = None
+    sorting = sort_printed(page.image, page.dpi, found.elements, colour)
     shaped = trim_to_structure(sorting.kept)
     why = {**sorting.reasons, **shaped.reasons}
     return (PageElements(found.width, found.height, shaped.kept, source=found.source, note=found.note),

@@ -233,3 +233,29 @@ def update_template(template: Template, paths: Sequence[str], limits: ReadLimits
     from .zones import with_zones
 
     return with_zones(dataclasses.replace(template, pages=tuple(pages), references=refs, warnings=warnings))
+
+
+def promote(template: Template, page: int, element_id: str) -> Template:
+    """The template with a set-aside element of ``page`` taken into the form (a person's call).
+
+    Raises :class:`~layoutcheck.check.LearnError` naming the template, page and element when the
+    page has no such set-aside element.
+    """
+    from .check import LearnError
+    from .zones import with_zones
+
+    if not 1 <= page <= len(template.pages):
+        raise LearnError(f"template {template.name}: no page {page}")
+    tp = template.pages[page - 1]
+    found = [e for e in tp.set_aside if e.id == element_id]
+    if not found:
+        raise LearnError(f"template {template.name} page {page}: no element {element_id!r} set aside")
+    elements = tp.elements + tuple(found)
+    raster = tp.raster_elements + tuple(found) if tp.raster_elements == tp.elements else tp.raster_elements
+    why = {k: v for k, v in tp.set_aside_why.items() if k != element_id}
+    new = dataclasses.replace(tp, elements=elements, raster_elements=raster,
+                              set_aside=tuple(e for e in tp.set_aside if e.id != element_id), set_aside_why=why,
+                              sections=find_sections(elements, tp.width, tp.height, {s.id: s.name for s in tp.sections}),
+                              seen={**tp.seen, element_id: max(tp.seen.get(element_id, 1), tp.samples)}, zones=())
+    pages = tuple(with_raster_sections(new) if p is tp else p for p in template.pages)
+    return with_zones(dataclasses.replace(template, pages=pages))

@@ -301,3 +301,41 @@ def test_trim_to_structure_stops_a_rule_at_the_box_it_runs_into():
     assert got["h3"] == far.frame and got["b"] == box.frame
     assert [e.id for e in s.set_aside] == ["v2"] and s.reasons["v2"].startswith("the side of box (b)")
     assert set(s.reasons) == {"h1", "h2", "v2"}
+
+
+def test_a_person_promotes_a_set_aside_element(ruled):
+    from layoutcheck.check import LearnError
+    from layoutcheck.samples import promote
+
+    filled = ruled[3]
+    page = filled.pages[0]
+    (aside,) = [e for e in page.set_aside if e.kind == "hline"]
+    t = promote(filled, 1, aside.id)
+    p = t.pages[0]
+    assert aside.id in {e.id for e in p.elements} and aside.id in {e.id for e in p.raster_elements}
+    assert aside.id not in {e.id for e in p.set_aside} and aside.id not in p.set_aside_why
+    assert aside.id in {i for s in p.sections for i in s.element_ids}
+    with pytest.raises(LearnError, match=r"page 1: no element 'hline-999' set aside"):
+        promote(filled, 1, "hline-999")
+
+
+def test_a_straight_blue_line_on_a_colour_scan_is_set_aside_by_its_colour(ruled, tmp_path):
+    """A line ruled in blue ink is as straight as print: only its colour gives it away."""
+    from PIL import Image
+
+    d, pdf = ruled[0], ruled[1]
+    sc = simulate_scan(pdf, dpi=DPI, blur_sigma_px=0.5, seed=5, oversample=2)
+    rgb = np.repeat(sc.image[..., None], 3, axis=2)
+    q = np.round(np.array([[120.0, 115.0], [170.0, 115.0]]) * PX * 16).astype(np.int32)
+    cv2.polylines(rgb, [q], False, (30, 50, 190), max(1, int(round(0.3 * PX))), lineType=cv2.LINE_AA, shift=4)
+    Image.fromarray(rgb, "RGB").save(tmp_path / "colour.png", dpi=(DPI, DPI))
+    Image.fromarray(rgb, "RGB").convert("L").save(tmp_path / "grey.png", dpi=(DPI, DPI))
+
+    def blue_rules(t, where):
+        return [e for e in getattr(t.pages[0], where) if e.kind == "hline" and abs(e.center[1] / MM - 115) < 0.5]
+
+    colour, grey = learn([str(tmp_path / "colour.png")]), learn([str(tmp_path / "grey.png")])
+    assert len(blue_rules(grey, "elements")) == 1 and blue_rules(grey, "set_aside") == []
+    (aside,) = blue_rules(colour, "set_aside")
+    assert blue_rules(colour, "elements") == []
+    assert colour.pages[0].set_aside_why[aside.id] == "its ink is not the colour of the print"

@@ -12,7 +12,8 @@ from click.testing import CliRunner
 from layoutcheck.check import learn
 from layoutcheck.cli import main
 from layoutcheck.elements import MM_PER_POINT, Element
-from layoutcheck.extract.raster.printed import lab_ab, measure_line, page_levels, sort_printed, trim_to_structure
+from layoutcheck.extract.raster.printed import (alignment, lab_ab, measure_line, page_levels, sort_printed,
+                                                trim_to_structure)
 from layoutcheck.simulate import save_scan, simulate_scan
 from layoutcheck.template import load_template
 
@@ -339,3 +340,11 @@ def test_a_straight_blue_line_on_a_colour_scan_is_set_aside_by_its_colour(ruled,
     (aside,) = blue_rules(colour, "set_aside")
     assert blue_rules(colour, "elements") == []
     assert colour.pages[0].set_aside_why[aside.id] == "its ink is not the colour of the print"
+
+
+def test_alignment_counts_elements_sharing_an_edge():
+    els = [Element("a", "hline", (0.0, 9.9, 50.0, 10.1), 0.0, source="raster"),
+           Element("b", "box", (50.2, 30.0, 80.0, 40.0), 0.0, source="raster"),  # its left side meets a's end
+           Element("c", "hline", (100.0, 10.0, 130.0, 10.2), 0.0, source="raster"),  # in line with a
+           Element("d", "vline", (200.0, 100.0, 200.4, 150.0), 0.0, source="raster")]
+    assert alignment(els, 0.5).tolist() == [2, 1, 1, 0]

@@ -296,17 +296,16 @@ def _edges(e: Element) -> tuple[list[float], list[float]]:
 
 def alignment(elements: list[Element], tol_pt: float) -> np.ndarray:
     """Per element, how many other elements share one of its edge coordinates (within ``tol_pt``)."""
-    xs = [np.array(_edges(e)[0]) for e in elements]
-    ys = [np.array(_edges(e)[1]) for e in elements]
-    out = np.zeros(len(elements), int)
-    for i in range(len(elements)):
-        for j in range(len(elements)):
-            if i == j:
-                continue
-            if (np.abs(xs[i][:, None] - xs[j][None, :]) <= tol_pt).any() or \
-                    (np.abs(ys[i][:, None] - ys[j][None, :]) <= tol_pt).any():
-                out[i] += 1
-    return out
+    n = len(elements)
+    shared = np.zeros((n, n), bool)
+    for axis in (0, 1):
+        coords = [_edges(e)[axis] for e in elements]
+        owner = np.repeat(np.arange(n), [len(c) for c in coords])
+        v = np.array([c for cs in coords for c in cs], float)
+        a, b = np.nonzero(np.abs(v[:, None] - v[None, :]) <= tol_pt)
+        shared[owner[a], owner[b]] = True
+    np.fill_diagonal(shared, False)
+    return shared.sum(1)
 
 
 def page_levels(grey: np.ndarray) -> tuple[float, float]:
@@ -338,7 +337,7 @@ def sort_printed(grey: np.ndarray, dpi: float, elements, colour: np.ndarray | No
 
     Rules are judged by their own ink (fit residual, stroke spread) and by alignment; a rule
     that is only a little wavy or uneven stays when it shares an edge with another element.
-    A box whose sides are wavy (two or more) goes. Rules are cut to their printed span. Marks and
+    A box with a side bent like writing goes. Rules are cut to their printed span. Marks and
     labels stay (labels are not judged on scans). With ``colour`` (RGB, same size as ``grey``),
     rules and boxes whose ink is far in chroma from the page's print go too.
     """
@@ -350,10 +349,6 @@ def sort_printed(grey: np.ndarray, dpi: float, elements, colour: np.ndarray | No
     tol = settings.align_mm / MM_PER_POINT
     structural = [e for e in els if e.kind_class in ("line", "box", "mark")]
     aligned = dict(zip((e.id for e in structural), alignment(structural, tol)))
-    # Edges of the printed structure a rule's end may stop at: other elements' sides and the left
-    # edges of labels (a caption under a signature rule starts where the rule does).
-    edges = [(e.id, *_edges(e)) for e in structural] + \
-        [(e.id, [e.frame[0]], [e.frame[1]]) for e in els if e.kind_class == "text"]
     inks: dict[str, list[LineInk]] = {}
     for e in els:
         if e.kind in ("hline", "vline"):
@@ -377,7 +372,7 @@ def sort_printed(grey: np.ndarray, dpi: float, elements, colour: np.ndarray | No
             reasons[e.id] = why
             continue
         if e.kind in ("hline", "vline"):
-            span = _supported(e, ink[0].span, edges, settings)
+            span = _supported(e, ink[0].span, settings)
             along, across, length, _ = _axes(e)
             if abs(ink[0].offset) * MM_PER_POINT >= settings.replace_mm:
                 dx, dy = across * ink[0].offset
@@ -394,24 +389,15 @@ def sort_printed(grey: np.ndarray, dpi: float, elements, colour: np.ndarray | No
     return Sorting(tuple(kept), tuple(aside), reasons)
 
 
-def _supported(e: Element, span: tuple[float, float], edges, settings: PrintedSettings) -> tuple[float, float]:
-    """The printed span of a rule, kept to its measured end where the printed structure
-    supports that end (another element's edge in line with it), or where the ink beyond the
-    span runs on longer than a tail of writing does (``max_trim_mm``)."""
-    along, _, length, _ = _axes(e)
-    tol = settings.align_mm / MM_PER_POINT
-    horizontal = e.size[0] >= e.size[1]
-    ends = (e.frame[0], e.frame[2]) if horizontal else (e.frame[1], e.frame[3])
-    out = list(span)
-    for j, (end, half) in enumerate(zip(ends, (-length / 2.0, length / 2.0))):
-        if abs(half - span[j]) > settings.max_trim_mm / MM_PER_POINT:
-            out[j] = half
-            continue
-        for oid, xs, ys in edges:
-            if oid != e.id and any(abs(v - end) <= tol for v in (xs if horizontal else ys)):
-                out[j] = half
-                break
-    return out[0], out[1]
+def _supported(e: Element, span: tuple[float, float], settings: PrintedSettings) -> tuple[float, float]:
+    """The printed span of a rule, kept to its measured end where the ink beyond the span runs on
+    longer than a tail of writing does (``max_trim_mm``): a stretch of a rule that a signature's
+    flourish lies along looks, from its ink, like a tail."""
+    _, _, length, _ = _axes(e)
+    cap = settings.max_trim_mm / MM_PER_POINT
+    lo = span[0] if span[0] + length / 2.0 <= cap else -length / 2.0
+    hi = span[1] if length / 2.0 - span[1] <= cap else length / 2.0
+    return lo, hi
 
 
 def _fill_in_reason(e: Element, ink: list[LineInk], aligned: int, print_ab, settings: PrintedSettings,

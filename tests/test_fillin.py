@@ -348,3 +348,12 @@ def test_alignment_counts_elements_sharing_an_edge():
            Element("c", "hline", (100.0, 10.0, 130.0, 10.2), 0.0, source="raster"),  # in line with a
            Element("d", "vline", (200.0, 100.0, 200.4, 150.0), 0.0, source="raster")]
     assert alignment(els, 0.5).tolist() == [2, 1, 1, 0]
+
+
+def test_a_bitonal_turned_scan_of_the_blank_keeps_every_rule_and_box(ruled, tmp_path):
+    """On a bitonal page a turned rule's centre steps by whole pixels: still printed."""
+    _, pdf, blank, _ = ruled
+    sc = simulate_scan(pdf, dpi=DPI, rotation_deg=0.4, blur_sigma_px=0.6, bitonal_threshold=150, seed=2, oversample=2)
+    t = learn([save_scan(sc, tmp_path / "bitonal.png")])
+    assert [e.label() for e in t.pages[0].set_aside if e.kind_class in ("line", "box")] == []
+    assert sorted(e.kind for e in _structure(t)) == sorted(e.kind for e in _structure(blank))

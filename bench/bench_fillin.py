@@ -274,6 +274,13 @@ def summarise(new: dict, old: dict, rev: str, seconds: float) -> str:
         lines.append(f"| {fn['form']} | {fo['kept_right']}/{fo['learned']} | {fo['found']}/{fo['ref']} "
                      f"| {fn['kept_right']}/{fn['learned']} | {fn['found']}/{fn['ref']} | {vo}/{len(fo['cases'])} | {vn}/{len(fn['cases'])} |")
     lines.append("")
+    lines += [
+        "A filled page being verified (the last row of the first table) is judged by the verifying side: a rule",
+        "on the input whose measured end runs on along a tail of writing is reported moved or resized whatever",
+        "the template holds. That is for rules judged as rules (across their axis, and by their span when ink",
+        "touches their ends), not for learning.",
+        "",
+    ]
     wrong = [(f["form"], c, m) for f in new["forms"] for c in f["cases"] for m in ("one", "three") if c[m] != c["want"]]
     if wrong:
         lines += ["Verdicts still wrong now:", ""]

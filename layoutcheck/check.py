@@ -17,7 +17,7 @@ import numpy as np
 from .consensus import Match, SolverSettings, solve
 from .elements import MM_PER_POINT, PageElements
 from .sources import PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page, where
-from .template import Template, TemplatePage, template_page, with_raster_sections
+from .template import LearnError, Template, TemplatePage, template_page, with_raster_sections
 from .verdict import Finding, Tolerances, judge, offending
 
 #: Resolution at which a born-digital reference is rendered to learn how scans of it look
@@ -27,10 +27,6 @@ REFERENCE_RENDER_DPI = 200.0
 #: Rendered at three times that and averaged down: pdfium snaps rectangle edges to its pixel grid
 #: (by up to a few hundredths of a millimetre), which would bias the template's raster frames.
 REFERENCE_OVERSAMPLE = 3
-
-
-class LearnError(Exception):
-    """A reference that cannot be learned from; one line naming the file and page."""
 
 
 def extract(page: VectorPage | RasterPage) -> PageElements:
@@ -106,8 +102,8 @@ def learn(references: Sequence[str], name: str | None = None, pages: set[int] | 
     if len(refs) > 1:
         from .samples import learn_from_samples
 
-        return with_zones(learn_from_samples(refs, name=name, pages=pages, limits=limits, section_names=section_names,
-                                             with_raster=with_raster))
+        per_sample = [[(vec, ras) for _, vec, ras in reference_pages(p, limits, pages, with_raster)] for p in refs]
+        return with_zones(learn_from_samples(per_sample, refs, name or _default_name(refs[0]), section_names))
     ref = refs[0]
     out_pages: list[TemplatePage] = []
     for page, vec, ras in reference_pages(ref, limits, pages, with_raster):

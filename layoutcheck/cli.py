@@ -13,9 +13,9 @@ from pathlib import Path
 import click
 
 from . import __version__
-from .sources import ReadLimits
-from .template import TemplateError, load_template, save_template
-from .verdict import VERDICTS, Tolerances
+from .api import (BatchOptions, CheckSettings, LearnError, ReadLimits, TemplateError, Tolerances, expand_inputs,
+                  learn as learn_template, load_templates as api_load_templates, parse_pages, run_batch, save_template,
+                  summary_table, write_report)
 
 EXIT_PASS, EXIT_FLAGGED, EXIT_USAGE = 0, 1, 2
 
@@ -27,53 +27,11 @@ class TemplateProblem(click.ClickException):
 
 
 def load_templates(paths) -> list:
-    """Templates from files and folders of ``*.json`` files."""
-    out = []
-    for p in paths:
-        pp = Path(p)
-        files = sorted(pp.glob("*.json")) if pp.is_dir() else [pp]
-        if pp.is_dir() and not files:
-            raise TemplateProblem(f"{p}: folder holds no template (*.json) files")
-        for f in files:
-            try:
-                out.append(load_template(f))
-            except TemplateError as exc:
-                raise TemplateProblem(str(exc)) from None
-    return out
-
-
-def summary_table(records: list[dict]) -> str:
-    """A plain table a person reads: one row per page, then counts per verdict."""
-    rows = [("file", "page", "verdict", "template", "turn°", "scale", "shift mm", "support", "what")]
-    for r in records:
-        p = r.get("pose") or {}
-        what = r["error"] or "; ".join(f["message"] for f in r["findings"][:2]) or "-"
-        shift = p.get("shift_mm")
-        rows.append((
-            os.path.basename(r["source"]), str(r["page"] if r["page"] is not None else "-"), r["verdict"],
-            r.get("template") or "-",
-            f"{p['rotation_deg']:+.2f}" if p else "-",
-            f"{p['scale']:.4f}" if p else "-",
-            f"{shift[0]:+.1f},{shift[1]:+.1f}" if shift else "-",
-            f"{r['support']:.2f}", what[:90],
-        ))
-    widths = [max(len(row[i]) for row in rows) for i in range(len(rows[0]) - 1)]
-    lines = []
-    for k, row in enumerate(rows):
-        lines.append("  ".join(cell.ljust(w) for cell, w in zip(row[:-1], widths)) + "  " + row[-1])
-        if k == 0:
-            lines.append("  ".join("-" * w for w in widths) + "  " + "-" * 4)
-    lines.append("")
-    lines.append(counts_line(records))
-    return "\n".join(lines)
-
-
-def counts_line(records: list[dict]) -> str:
-    counts = {v: 0 for v in VERDICTS}
-    for r in records:
-        counts[r["verdict"]] = counts.get(r["verdict"], 0) + 1
-    parts = [f"{counts[v]} {v}" for v in reversed(VERDICTS) if counts[v]]
-    return f"{len(records)} page(s): " + (", ".join(parts) if parts else "none")
+    """Templates from files and folders of ``*.json`` files; an unreadable one ends the command."""
+    try:
+        return list(api_load_templates(*paths))
+    except TemplateError as exc:
+        raise TemplateProblem(str(exc)) from None
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -93,8 +51,6 @@ def main() -> None:
 @click.option("--password", help="Password of an encrypted reference PDF.")
 def learn(references, output, name, pages_spec, dpi, section_names, zones_file, password):
     """Learn a template from a reference (a blank PDF or a clean scan), or from several good samples."""
-    from .check import LearnError, learn as learn_template, parse_pages
-
     try:
         pages = parse_pages(pages_spec)
     except ValueError as exc:
@@ -105,13 +61,9 @@ def learn(references, output, name, pages_spec, dpi, section_names, zones_file, 
             raise click.BadParameter(f"{item!r} is not ID=NAME", param_hint="--section-name")
         k, v = item.split("=", 1)
         names[k.strip()] = v.strip()
-    limits = ReadLimits(dpi=dpi, password=password)
     try:
-        template = learn_template(list(references), name=name, pages=pages, limits=limits, section_names=names)
-        if zones_file:
-            from .zones import apply_zone_file
-
-            template = apply_zone_file(template, zones_file)
+        template = learn_template(list(references), name=name, pages=pages, dpi=dpi, password=password,
+                                  section_names=names, zones=zones_file)
     except LearnError as exc:
         raise click.ClickException(str(exc)) from None
     save_template(template, output)
@@ -234,9 +186,6 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     INPUTS are files, folders (searched recursively), globs, or '-' for a list of paths on
     standard input. Each page gets one JSON Lines record, in input and page order.
     """
-    from .batch import BatchOptions, expand_inputs, run_batch
-    from .check import CheckSettings
-
     templates = load_templates([template, *more_templates])
     tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support)
     settings = CheckSettings(tolerances=tol, **handoff)
@@ -270,8 +219,6 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
 
 
 def _write_report(path, records, templates, tolerances):
-    from .report import write_report
-
     write_report(path, records, templates, tolerances)
 
 

@@ -16,8 +16,8 @@ import numpy as np
 
 from .consensus import SolverSettings, solve
 from .elements import Element, PageElements, frame_from_center
-from .sources import ReadLimits, where
-from .template import Template, TemplatePage, find_sections, match_raster_to_vector, with_raster_sections
+from .sources import where
+from .template import LearnError, Template, TemplatePage, find_sections, match_raster_to_vector, with_raster_sections
 
 #: Share of samples an element must be found on to be part of the template (a majority).
 KEEP_SHARE = 0.5
@@ -75,20 +75,14 @@ def consensus_elements(samples: Sequence[PageElements], settings: SolverSettings
     return kept, unstable, slack
 
 
-def _sample_pages(path: str, limits: ReadLimits, pages: set[int] | None, with_raster: bool):
-    """(vector PageElements or None, raster PageElements or None) per page of one sample file."""
-    from .check import reference_pages
+def learn_from_samples(per_sample: Sequence[Sequence[tuple]], paths: Sequence[str], name: str,
+                       section_names: dict[str, str] | None = None) -> Template:
+    """A template from several good samples of one form (see module docs).
 
-    return [(vec, ras) for _, vec, ras in reference_pages(path, limits, pages, with_raster)]
-
-
-def learn_from_samples(paths: Sequence[str], name: str | None = None, pages: set[int] | None = None,
-                       limits: ReadLimits = ReadLimits(), section_names: dict[str, str] | None = None,
-                       with_raster: bool = True) -> Template:
-    """A template from several good samples of one form (see module docs)."""
-    from .check import LearnError, _default_name
-
-    per_sample = [_sample_pages(p, limits, pages, with_raster) for p in paths]
+    ``per_sample`` holds, for each sample file (named in ``paths``), one ``(vector elements or
+    None, raster elements or None)`` pair per page, as read by
+    :func:`layoutcheck.check.reference_pages`.
+    """
     counts = {len(s) for s in per_sample}
     if len(counts) != 1:
         detail = ", ".join(f"{where(p, None)}: {len(s)}" for p, s in zip(paths, per_sample))
@@ -122,4 +116,4 @@ def learn_from_samples(paths: Sequence[str], name: str | None = None, pages: set
         tp = TemplatePage(k + 1, base.width, base.height, elements, sections, raster_els,
                           slack=slack, unstable=tuple(unstable))
         out_pages.append(with_raster_sections(tp))
-    return Template(name or _default_name(paths[0]), tuple(out_pages), tuple(p.split("/")[-1] for p in paths))
+    return Template(name, tuple(out_pages), tuple(p.split("/")[-1] for p in paths))

@@ -31,6 +31,10 @@ class TemplateError(Exception):
     """A template file that cannot be used; the message is one line naming the file."""
 
 
+class LearnError(Exception):
+    """A reference that cannot be learned from; one line naming the file and page."""
+
+
 @dataclass(frozen=True)
 class Section:
     """A part of a page that belongs together: a bordered panel or a band between rules."""

@@ -32,15 +32,21 @@ from .report import write_report
 from .sources import ReadLimits, RasterPage, image_page, open_document, snap_dpi
 from .summary import counts_line, summary_table
 from .template import LearnError, Template, TemplateError, load_template, save_template
-from .verdict import VERDICTS, Tolerances
+from .verdict import SEVERITY, VERDICTS, Tolerances
 from .zones import ZoneError, apply_zone_file
 
 __all__ = [
     "BatchOptions", "BatchResult", "CheckError", "CheckSettings", "Finding", "LearnError", "Offending",
-    "PagePose", "PageResult", "ReadLimits", "SectionResult", "Template", "TemplateError", "Tolerances",
+    "PagePose", "PageResult", "ReadLimits", "SEVERITY", "SectionResult", "Template", "TemplateError", "Tolerances",
     "VERDICTS", "ZoneError", "ZoneResult", "check_file", "check_page", "counts_line", "expand_inputs",
-    "learn", "load_templates", "parse_pages", "run_batch", "save_template", "summary_table", "write_report",
+    "SCHEMA_VERSION", "check_files", "learn", "load_templates", "parse_pages", "run_batch", "save_template", "schema",
+    "show_template", "summary_table", "write_report",
 ]
+
+#: Version of the JSON Schemas shipped in ``layoutcheck/schemas/`` (their ``x-schema-version``);
+#: raised whenever a record, template or zones file changes shape.
+SCHEMA_VERSION = 1
+SCHEMAS = ("record", "template", "zones")
 
 #: What :func:`check_page` takes as a page.
 PageInput = Union[str, os.PathLike, bytes, np.ndarray, Any]
@@ -221,6 +227,26 @@ class PageResult:
     def __repr__(self) -> str:
         where = f"{self.source} page {self.page}" if self.page is not None else self.source
         return f"<PageResult {where}: {self.verdict}>"
+
+
+def schema(name: str = "record") -> dict:
+    """The JSON Schema (draft 2020-12) of a ``record``, a ``template`` or a ``zones`` file."""
+    import json
+    from importlib.resources import files
+
+    if name not in SCHEMAS:
+        raise ValueError(f"no schema {name!r}; there are {', '.join(SCHEMAS)}")
+    return json.loads((files("layoutcheck") / "schemas" / f"{name}.schema.json").read_text(encoding="utf-8"))
+
+
+def show_template(template: Template, path: str | os.PathLike, *, reference: str | os.PathLike | None = None,
+                  template_path: str | os.PathLike | None = None, dpi: float | None = None) -> Path:
+    """Write a self-contained HTML page that shows what ``template`` learned (see
+    :mod:`layoutcheck.report.show`); the picture is ``reference``, or the template's reference
+    found beside ``template_path`` or in the current folder. Returns the page's path."""
+    from .report.show import write_template_page
+
+    return write_template_page(template, path, None if reference is None else str(reference), template_path, dpi)
 
 
 # -- templates ------------------------------------------------------------------------------------

@@ -37,6 +37,8 @@ def consensus_elements(samples: Sequence[PageElements], settings: SolverSettings
         Ids of kept elements not found on every sample.
     slack : dict
         Id -> largest offset seen on a good sample, in points.
+    seen : dict
+        Id -> number of samples the kept element was found on.
     """
     base = samples[0]
     els = list(base.elements)
@@ -60,7 +62,7 @@ def consensus_elements(samples: Sequence[PageElements], settings: SolverSettings
             centres[k, j] = inv.apply(np.array([e.center]))[0]
             sizes[k, j] = np.array(e.size) / m.pose.scale
     share = found.mean(axis=0)
-    kept, unstable, slack = [], [], {}
+    kept, unstable, slack, seen = [], [], {}, {}
     for j, e in enumerate(els):
         if share[j] <= KEEP_SHARE:
             continue
@@ -68,11 +70,12 @@ def consensus_elements(samples: Sequence[PageElements], settings: SolverSettings
         w, h = np.nanmedian(sizes[found[:, j], j], axis=0)
         spread = np.hypot(*(centres[found[:, j], j] - c).T)
         kept.append(e.replace(frame=frame_from_center(float(c[0]), float(c[1]), float(w), float(h))))
+        seen[e.id] = int(found[:, j].sum())
         if share[j] < 1.0:
             unstable.append(e.id)
         if len(spread) > 1:
             slack[e.id] = float(spread.max())
-    return kept, unstable, slack
+    return kept, unstable, slack, seen
 
 
 def learn_from_samples(per_sample: Sequence[Sequence[tuple]], paths: Sequence[str], name: str,
@@ -94,11 +97,11 @@ def learn_from_samples(per_sample: Sequence[Sequence[tuple]], paths: Sequence[st
         unstable: list[str] = []
         slack: dict = {}
         if all(v is not None for v in vec_sets):
-            v_els, v_unstable, v_slack = consensus_elements(vec_sets)
+            v_els, v_unstable, v_slack, seen = consensus_elements(vec_sets)
             base = vec_sets[0]
             raster_els: tuple[Element, ...] = ()
             if ras_sets:
-                r_els, _, r_slack = consensus_elements(ras_sets)
+                r_els, _, r_slack, _ = consensus_elements(ras_sets)
                 raster_els = tuple(match_raster_to_vector(r_els, v_els))
                 slack.update({e.id: r_slack.get(orig.id, 0.0) for e, orig in zip(raster_els, r_els) if orig.id in r_slack})
             elements = tuple(v_els)
@@ -106,7 +109,7 @@ def learn_from_samples(per_sample: Sequence[Sequence[tuple]], paths: Sequence[st
         else:
             if len(ras_sets) != len(paths):
                 raise LearnError("good samples mix born-digital and scanned pages; give one kind")
-            r_els, unstable, slack = consensus_elements(ras_sets)
+            r_els, unstable, slack, seen = consensus_elements(ras_sets)
             base = ras_sets[0]
             elements = tuple(r_els)
             raster_els = elements
@@ -114,6 +117,6 @@ def learn_from_samples(per_sample: Sequence[Sequence[tuple]], paths: Sequence[st
             raise LearnError(f"page {k + 1}: the good samples agree on only {len(elements)} elements")
         sections = find_sections(elements, base.width, base.height, section_names)
         tp = TemplatePage(k + 1, base.width, base.height, elements, sections, raster_els,
-                          slack=slack, unstable=tuple(unstable))
+                          slack=slack, unstable=tuple(unstable), seen=seen)
         out_pages.append(with_raster_sections(tp))
     return Template(name, tuple(out_pages), tuple(p.split("/")[-1] for p in paths))

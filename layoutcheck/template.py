@@ -96,6 +96,8 @@ class TemplatePage:
     unstable: tuple[str, ...] = ()
     #: Named zones for OCR (see :mod:`layoutcheck.zones`); empty in templates written before them.
     zones: tuple[Zone, ...] = ()
+    #: Element id -> number of good samples it was found on (templates learned from samples only).
+    seen: dict = field(default_factory=dict)
 
     def elements_for(self, source: str) -> tuple[Element, ...]:
         """The element set to compare an input of this source ("vector" or "raster") with."""
@@ -118,6 +120,7 @@ class TemplatePage:
             "slack": {k: round(float(v), 3) for k, v in self.slack.items()},
             "unstable": list(self.unstable),
             "zones": [z.to_dict() for z in self.zones],
+            **({"seen": dict(self.seen)} if self.seen else {}),
         }
 
     @classmethod
@@ -132,6 +135,7 @@ class TemplatePage:
             slack={str(k): float(v) for k, v in d.get("slack", {}).items()},
             unstable=tuple(d.get("unstable", [])),
             zones=tuple(Zone.from_dict(z) for z in d.get("zones", [])),
+            seen={str(k): int(v) for k, v in d.get("seen", {}).items()},
         )
 
 
@@ -330,7 +334,7 @@ def with_raster_sections(page: TemplatePage) -> TemplatePage:
         extra[best.id].append(e.id)
     sections = tuple(Section(s.id, s.name, s.frame, s.element_ids + tuple(extra[s.id])) for s in page.sections)
     return TemplatePage(page.number, page.width, page.height, page.elements, sections, page.raster_elements,
-                        page.slack, page.unstable, page.zones)
+                        page.slack, page.unstable, page.zones, page.seen)
 
 
 def _frame_distance(f: Sequence[float], x: float, y: float) -> float:

@@ -76,7 +76,8 @@ def test_consensus_of_one_sample_is_itself(tmp_path):
 
     path = draw_form(tmp_path / "a.pdf")
     (pe,) = [extract(p) for p in read_pages(path)]
-    kept, unstable, slack = consensus_elements([pe])
+    kept, unstable, slack, seen = consensus_elements([pe])
     assert [e.id for e in kept] == [e.id for e in pe.elements]
     assert [e.frame for e in kept] == [pytest.approx(e.frame, abs=1e-9) for e in pe.elements]
     assert unstable == [] and slack == {}
+    assert seen == {e.id: 1 for e in pe.elements}

@@ -67,5 +67,5 @@ def test_unstable_elements_are_marked_and_text_is_escaped(tmp_path):
     assert re.findall(r"<td class=\"num\">(\d) of 3</td>", text).count("2") == 2
     # No reference file to be found: the elements are drawn on a blank page, and the page says so.
     assert "data:image" not in text and "The reference was not found" in text
-    csp = re.search(r'http-equiv="Content-Security-Policy" content="([^"]+)"', text).group(1)
+    csp = html.unescape(re.search(r'http-equiv="Content-Security-Policy" content="([^"]+)"', text).group(1))
     assert "default-src 'none'" in csp and "script-src 'sha256-" in csp

@@ -1,12 +1,12 @@
-"""Command line: ``layoutcheck learn``, ``layoutcheck verify``, ``layoutcheck demo``.
+"""Command line: ``layoutcheck learn``, ``verify``, ``watch``, ``show`` and ``demo``.
 
-Thin on purpose: everything a library user would also need lives in the modules it calls.
+Thin on purpose: everything a library user would also need lives in :mod:`layoutcheck.api`, the
+only part of the library this module uses.
 Exit codes: 0 every page passed, 1 some page did not, 2 usage error or unreadable template.
 """
 
 from __future__ import annotations
 
-import os
 import sys
 from pathlib import Path
 

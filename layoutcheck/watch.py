@@ -68,6 +68,8 @@ class WatchSummary:
 
     files: dict = field(default_factory=lambda: {f: 0 for f in FOLDERS})
     verdicts: dict = field(default_factory=dict)
+    #: Seconds spent drawing review.html.
+    report_seconds: float = 0.0
 
     @property
     def all_pass(self) -> bool:
@@ -304,7 +306,11 @@ class Watcher:
                 if rec["verdict"] != "pass" and dest and os.path.exists(dest):
                     # The picture is read from where the file is now.
                     flagged.append({**rec, "source": dest})
-        write_report(self.report_path, flagged, self.templates, self.settings.tolerances)
+        t0 = time.perf_counter()
+        write_report(self.report_path, flagged, self.templates, self.settings.tolerances, views=self._views)
+        dt = time.perf_counter() - t0
+        self.summary.report_seconds += dt
+        self.log(f"{self.report_path.name}: {len(flagged)} flagged page(s) waiting for review ({dt:.1f} s)")
 
     def run(self) -> WatchSummary:
         """Watch until interrupted (or, with ``once``, until the files there at the start are filed)."""
@@ -316,6 +322,7 @@ class Watcher:
         self._reserved: set[str] = set()
         self._settler = Settler(self.watch.settle)
         self._filed_this_round = 0
+        self._views: dict = {}  # each flagged page is drawn once, however often review.html is rewritten
         try:
             self._recover()
             skip = [self.out] + [self.out / f for f in FOLDERS]

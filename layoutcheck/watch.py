@@ -108,11 +108,12 @@ def _fsync_dir(path: Path) -> None:
         os.close(fd)
 
 
-def _append(fd: int, data: bytes) -> None:
+def _append(fd: int, data: bytes, sync: bool = True) -> None:
     view = memoryview(data)
     while view:
         view = view[os.write(fd, view):]
-    os.fsync(fd)
+    if sync:
+        os.fsync(fd)
 
 
 def move(src: Path, dest: Path) -> None:
@@ -159,8 +160,9 @@ class Journal:
             # Records already in the file before the first run are someone's: keep them.
             self.write({"state": "start", "end": records.stat().st_size if records.exists() else 0})
 
-    def write(self, entry: dict) -> None:
-        _append(self.fd, (json.dumps(entry, ensure_ascii=False) + "\n").encode("utf-8"))
+    def write(self, entry: dict, sync: bool = True) -> None:
+        """Append one entry; ``sync=False`` for an entry that recovery can tell without it."""
+        _append(self.fd, (json.dumps(entry, ensure_ascii=False) + "\n").encode("utf-8"), sync)
         if "key" in entry:
             self.last[entry["key"]] = entry
         self.end = max(self.end, entry.get("end", 0))
@@ -270,7 +272,8 @@ class Watcher:
         self.journal.write({"key": key, "rel": rel, "state": "recorded", "source": str(src), "dest": str(dest),
                             "end": end})
         move(src, dest)
-        self.journal.write({"key": key, "state": "moved"})
+        # Not synced: lost in a crash, recovery finds the file already at its destination.
+        self.journal.write({"key": key, "state": "moved"}, sync=False)
         self._settler.forget(path)
         self.summary.files[folder] += 1
         counts: dict[str, int] = {}

@@ -165,10 +165,10 @@ def test_a_crash_at_each_step_is_finished_on_restart(tmp_path, monkeypatch, poin
     if point == "after records":
         real = watch_mod.Journal.write
 
-        def write(self, entry):
+        def write(self, entry, sync=True):
             if entry.get("state") == "recorded" and entry["rel"] == "101_shifted.pdf":
                 raise Crash(point)
-            real(self, entry)
+            real(self, entry, sync)
         monkeypatch.setattr(watch_mod.Journal, "write", write)
     elif point == "after journal":
         real_move = watch_mod.move

@@ -309,11 +309,12 @@ class Watcher:
                 if rec["verdict"] != "pass" and dest and os.path.exists(dest):
                     # The picture is read from where the file is now.
                     flagged.append({**rec, "source": dest})
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         write_report(self.report_path, flagged, self.templates, self.settings.tolerances, views=self._views)
-        dt = time.perf_counter() - t0
+        dt, cpu = time.perf_counter() - t0, time.process_time() - c0
         self.summary.report_seconds += dt
-        self.log(f"{self.report_path.name}: {len(flagged)} flagged page(s) waiting for review ({dt:.1f} s)")
+        self.log(f"{self.report_path.name}: {len(flagged)} flagged page(s) waiting for review "
+                 f"(drawn in {dt:.1f} s, {cpu:.1f} s CPU)")
 
     def run(self) -> WatchSummary:
         """Watch until interrupted (or, with ``once``, until the files there at the start are filed)."""

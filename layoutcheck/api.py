@@ -29,7 +29,7 @@ import numpy as np
 from .batch import BatchOptions, BatchResult, expand_inputs, run_batch
 from .check import CheckSettings, check_page as _check_page, handoff_fields, learn as _learn, parse_pages
 from .report import write_report
-from .sources import ReadLimits, RasterPage, image_page, open_document, snap_dpi
+from .sources import ReadLimits, RasterPage, image_page, open_document, record_path, snap_dpi
 from .summary import counts_line, summary_table
 from .template import LearnError, Template, TemplateError, load_template, save_template
 from .verdict import SEVERITY, VERDICTS, Tolerances
@@ -315,7 +315,7 @@ def check_page(image: PageInput, templates: TemplatesInput, *, page: int = 1, dp
         :mod:`layoutcheck.capture`) and given in the record as ``measured_dpi``.
     source : str, optional
         Name of an in-memory page in the record and in messages (default ``"image"``); a path
-        names itself.
+        names itself, made absolute as in every record.
     settings, limits
         What is judged and how (tolerances, zones, normalised output), and read limits.
 
@@ -331,7 +331,7 @@ def check_page(image: PageInput, templates: TemplatesInput, *, page: int = 1, dp
     tmpl = _templates(templates)
     lim = dataclasses.replace(limits, dpi=dpi) if dpi is not None else limits
     if isinstance(image, (str, os.PathLike)):
-        rec = _check_document(os.path.normpath(str(image)), tmpl, settings, lim, page)
+        rec = _check_document(record_path(image), tmpl, settings, lim, page)
     elif isinstance(image, (bytes, bytearray, memoryview)):
         rec = _check_document(source or "image", tmpl, settings, lim, page, data=bytes(image))
     else:

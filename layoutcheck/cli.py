@@ -248,10 +248,11 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     records = result.records
     if report_out:
         _write_report(report_out, records, templates, tol)
-    out = click.get_text_stream("stderr") if json_out == "-" else click.get_text_stream("stdout")
+    # With records on standard output, the people's summary goes to standard error.
+    to_err = json_out == "-"
     if not quiet and records:
-        click.echo("\n".join(summary_table(records).split("\n")[:-1]), file=out)
-    click.echo(result.summary(), file=out)
+        click.echo("\n".join(summary_table(records).split("\n")[:-1]), err=to_err)
+    click.echo(result.summary(), err=to_err)
     sys.exit(EXIT_PASS if result.all_pass else EXIT_FLAGGED)
 
 

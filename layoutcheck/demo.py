@@ -48,11 +48,9 @@ def run_demo(out_dir: Path, echo: Callable[[str], None] = print) -> int:
     settings = CheckSettings(zones=True)
     normalised = CheckSettings(zones=True, normalise_dir=str(out_dir / "normalised"))
     for rel in inputs:
-        for result in check_file(str(samples / rel), templates, settings=normalised if rel == NORMALISE_DEMO else settings,
-                                 errors="keep"):
-            rec = result.to_record()
-            rec["source"] = rel
-            records.append(rec)
+        results = check_file(str(samples / rel), templates, settings=normalised if rel == NORMALISE_DEMO else settings,
+                             errors="keep")
+        records.extend(r.to_record() for r in results)
     jsonl = out_dir / "results.jsonl"
     with open(jsonl, "w", encoding="utf-8") as fh:
         for r in records:
@@ -60,12 +58,12 @@ def run_demo(out_dir: Path, echo: Callable[[str], None] = print) -> int:
     echo("")
     echo(summary_table(records))
     truth = {(e["input"], e["page"]): e["verdict"] for e in expected}
-    got = {(r["source"], r["page"]): r["verdict"] for r in records}
+    got = {(Path(r["source"]).relative_to(samples).as_posix(), r["page"]): r["verdict"] for r in records}
     wrong = [(k, v, got.get(k)) for k, v in truth.items() if got.get(k) != v]
     echo("")
     echo(f"records: {jsonl}")
     report = out_dir / "report.html"
-    write_report(report, records, templates, Tolerances(), base_dir=samples)
+    write_report(report, records, templates, Tolerances())
     echo(f"report:  {report}")
     echo(f"verdicts as planted: {len(truth) - len(wrong)} of {len(truth)}")
     for (src, page), want, have in wrong:

@@ -168,9 +168,11 @@ def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pa
                   data: bytes | None = None) -> Document:
     """Open one input file (PDF, PNG, JPEG, TIFF) and plan what it yields; never raises.
 
-    With ``data``, the file's content is read from memory and ``path`` only names it in messages.
+    The document's ``source`` (and so every record's) is the absolute path of the file, so that
+    any reader of a record finds the file again whatever its own working folder. With ``data``,
+    the file's content is read from memory and ``path`` only names it, as given.
     """
-    source = str(path)
+    source = record_path(path) if data is None else str(path)
     p = Path(source)
     try:
         if data is not None:
@@ -193,6 +195,11 @@ def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pa
         return _ImageDocument.open(source, limits, pages)
     except Exception as exc:  # last line of defence: a reader bug must not end the batch
         return _failed(source, f"could not be read ({type(exc).__name__}: {_one_line(exc)})")
+
+
+def record_path(path: str | os.PathLike) -> str:
+    """The form in which a file's path is written into records: absolute, links not resolved."""
+    return os.path.abspath(os.fspath(path))
 
 
 def _failed(source: str, what: str) -> Document:

@@ -26,14 +26,8 @@ def without(rec: dict, *keys: str) -> dict:
 
 @pytest.fixture(scope="module")
 def cli_records(tmp_path_factory):
-    import warnings
-
     out = tmp_path_factory.mktemp("api") / "out.jsonl"
-    with warnings.catch_warnings():
-        # The verify command's closing summary still uses click.get_text_stream, deprecated in
-        # click 8.5; the command line's own fix replaces it. Until then this warning is let through.
-        warnings.filterwarnings("ignore", "'get_text_stream' is deprecated", DeprecationWarning)
-        res = CliRunner().invoke(main, ["verify", str(TEMPLATE), str(SCAN), str(PDF), "--json", str(out), "-q"])
+    res = CliRunner().invoke(main, ["verify", str(TEMPLATE), str(SCAN), str(PDF), "--json", str(out), "-q"])
     assert res.exit_code == 1, res.output  # neither page passes: one is turned, one shifted
     recs = [json.loads(line) for line in out.read_text().splitlines()]
     return {Path(r["source"]).name: r for r in recs}

@@ -250,6 +250,7 @@ class Watcher:
                     src.unlink()  # a copy across filesystems finished, the delete did not
             elif src.exists():
                 move(src, dest)
+                self.log(f"{entry['rel']}: filed to {dest.relative_to(self.out)} (recorded before the last stop)")
             else:
                 self.log(f"{entry['rel']}: gone from the inbox before it was filed; its records stay")
             self.journal.write({"key": entry["key"], "state": "moved"})

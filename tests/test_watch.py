@@ -223,24 +223,34 @@ def test_sigkill_at_random_moments_then_restart(tmp_path):
     dropped["batch0/broken.png"] = (inbox / "batch0" / "broken.png").read_bytes()
     env = dict(os.environ, PYTHONPATH=str(ROOT))
     cmd = [sys.executable, "-m", "layoutcheck.cli", "watch", str(TEMPLATES), str(inbox), "--out", str(out), "--settle", "0.3", "-q"]
+    records = out / "records.jsonl"
     journal = out / ".journal.jsonl"
     rng = __import__("random").Random(7)
     slow_writer = None
-    for kill in range(4):
-        proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    # Checking takes far longer than filing, so a kill at a random moment mostly lands in checking;
+    # the kills that land in filing are aimed: the moment records.jsonl grows (records written,
+    # not yet journaled), a few milliseconds later (journaled or being moved), and one at random.
+    for kill, delay in enumerate((0.0, 0.004, 0.0, None, 0.002)):
+        log = open(tmp_path / f"log{kill}", "w")
+        proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=log)
         if kill == 1:  # a file written slowly while the watcher runs
             (inbox / "late").mkdir(exist_ok=True)
             slow_writer = write_slowly(inbox / "late" / "310_filled.pdf", (INPUTS / "310_filled.pdf").read_bytes(), 1.0)
             dropped["late/310_filled.pdf"] = (INPUTS / "310_filled.pdf").read_bytes()
-        moved = journal.read_text().count('"moved"') if journal.exists() else 0
         deadline = time.monotonic() + 60
-        while time.monotonic() < deadline:  # wait for one more file to be filed, then a random moment
-            if journal.exists() and journal.read_text().count('"moved"') > moved:
-                break
-            time.sleep(0.05)
-        time.sleep(rng.uniform(0.0, 0.4))
+        if delay is None:  # wait for one more file to be filed, then a random moment
+            moved = journal.read_text().count('"moved"') if journal.exists() else 0
+            while time.monotonic() < deadline and not (journal.exists() and journal.read_text().count('"moved"') > moved):
+                time.sleep(0.05)
+            time.sleep(rng.uniform(0.0, 0.4))
+        else:
+            size = records.stat().st_size if records.exists() else 0
+            while time.monotonic() < deadline and (records.stat().st_size if records.exists() else 0) == size:
+                pass  # no sleep: the window between records and journal is a few milliseconds
+            time.sleep(delay)
         proc.send_signal(signal.SIGKILL)
         proc.wait()
+        log.close()
     slow_writer.join()
     res = subprocess.run(cmd[:-1] + ["--once"], env=env, capture_output=True, text=True, timeout=300)
     assert res.returncode == 1, res.stderr  # some pages were flagged

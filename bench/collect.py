@@ -6,6 +6,7 @@ fixed order, under a short preface. Run it after the benchmarks:
 
     python bench/bench_consensus.py && python bench/bench_raster.py && python bench/bench_scans.py \\
       && python bench/bench_fillin.py && python bench/bench_normalise.py && python bench/bench_batch.py \\
+      && python bench/bench_watch.py \\
       && python bench/collect.py
 """
 
@@ -22,6 +23,7 @@ ORDER = (
     ("fillin", "Templates from filled scans: one, three, and what they keep"),
     ("normalise", "Normalised pages and zones"),
     ("batch", "Batches: throughput, choosing among 50 templates, memory"),
+    ("watch", "Watched inbox: throughput against verify"),
 )
 PREFACE = """# Benchmarks
 

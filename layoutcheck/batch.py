@@ -315,6 +315,9 @@ class _Order:
         self.held: list[dict] = []
         self.pages_total = 0
         self.pages_done = 0
+        self.planned = 0  # files whose plan is known
+        self.on_file: Callable[[str, list[dict]], None] | None = None
+        self.file_records: list[dict] = []
 
     def key(self, i: int, entry) -> tuple[str, int | None]:
         return (self.files[i], entry if isinstance(entry, int) else entry["page"])
@@ -329,6 +332,7 @@ class _Order:
                 self.result.counts[self.done[k]["verdict"]] += 1
         self.plans[i] = todo
         self.pages_total += len(todo)
+        self.planned += 1
         return [e for e in todo if isinstance(e, int)]
 
     def add(self, i: int, page: int, record: dict) -> None:
@@ -351,6 +355,9 @@ class _Order:
                 self.pos += 1
                 self._emit(rec)
             self._end_file()
+            if self.on_file is not None:
+                self.on_file(self.files[self.cursor], self.file_records)
+                self.file_records = []
             del self.plans[self.cursor]
             self.cursor += 1
             self.pos = 0
@@ -379,9 +386,13 @@ class _Order:
         self.result.written += 1
         if self.result is not None and self._keep:
             self.result.records.append(rec)
+        if self.on_file is not None:
+            self.file_records.append(rec)
         self.pages_done += 1
         if self.progress:
-            self.progress(self.pages_done, self.pages_total)
+            # Files not yet opened count as one page each, so the total is right from the start
+            # for single-page files and grows as longer files are opened.
+            self.progress(self.pages_done, self.pages_total + len(self.files) - self.planned)
 
     _keep = False
     _settings = CheckSettings()
@@ -390,11 +401,14 @@ class _Order:
 # -- engines --------------------------------------------------------------------------------------
 def run_batch(inputs: Sequence[str], templates: Sequence[Template], settings: CheckSettings = CheckSettings(),
               limits: ReadLimits = ReadLimits(), output: str | None = None, options: BatchOptions = BatchOptions(),
-              progress: Callable[[int, int], None] | None = None) -> BatchResult:
+              progress: Callable[[int, int], None] | None = None,
+              on_file: Callable[[str, list[dict]], None] | None = None) -> BatchResult:
     """Check every page of ``inputs`` (already expanded) and write the records to ``output``.
 
     ``output`` is a path, ``"-"`` for standard output, or None for no file (keep the records
-    with ``options.keep_records``). Never raises for bad input; see the module notes.
+    with ``options.keep_records``). ``progress(done, total)`` is called after each record, with
+    files not yet opened counted as one page; ``on_file(path, records)`` once a file's records
+    are all written, in input order. Never raises for bad input; see the module notes.
     """
     files = [os.path.normpath(p) if p != "-" else p for p in inputs]
     done = read_done(output) if options.resume and output and output != "-" else {}
@@ -406,6 +420,7 @@ def run_batch(inputs: Sequence[str], templates: Sequence[Template], settings: Ch
     order = _Order(files, list(templates), sink, done, result, progress)
     order._keep = options.keep_records
     order._settings = settings
+    order.on_file = on_file
     try:
         if options.engine == "dask":
             _run_dask(files, templates, settings, limits, options, order)

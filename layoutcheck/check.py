@@ -19,7 +19,7 @@ import numpy as np
 from .consensus import Match, SolverSettings, solve
 from .elements import MM_PER_POINT, Element, PageElements
 from .sources import PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page, where
-from .template import Template, TemplatePage, template_page, with_raster_sections
+from .template import LearnError, Template, TemplatePage, template_page, with_raster_sections
 from .verdict import Finding, Tolerances, judge, offending
 
 #: Resolution at which a born-digital reference is rendered to learn how scans of it look
@@ -29,10 +29,6 @@ REFERENCE_RENDER_DPI = 200.0
 #: Rendered at three times that and averaged down: pdfium snaps rectangle edges to its pixel grid
 #: (by up to a few hundredths of a millimetre), which would bias the template's raster frames.
 REFERENCE_OVERSAMPLE = 3
-
-
-class LearnError(Exception):
-    """A reference that cannot be learned from; one line naming the file and page."""
 
 
 def extract(page: VectorPage | RasterPage) -> PageElements:
@@ -127,8 +123,8 @@ def learn(references: Sequence[str], name: str | None = None, pages: set[int] | 
     if len(refs) > 1:
         from .samples import learn_from_samples
 
-        return with_zones(learn_from_samples(refs, name=name, pages=pages, limits=limits, section_names=section_names,
-                                             with_raster=with_raster))
+        per_sample = [sample_pages(p, limits, pages, with_raster) for p in refs]
+        return with_zones(learn_from_samples(per_sample, refs, name or _default_name(refs[0]), section_names))
     ref = refs[0]
     out_pages: list[TemplatePage] = []
     for page, vec, ras in reference_pages(ref, limits, pages, with_raster):
@@ -152,6 +148,30 @@ def learn(references: Sequence[str], name: str | None = None, pages: set[int] | 
 
         warnings = (single_sample_warning(sum(len(p.set_aside) for p in out_pages)),)
     return with_zones(Template(stem, tuple(out_pages), (ref.split("/")[-1],), warnings))
+
+
+def sample_pages(path: str, limits: ReadLimits, pages: set[int] | None = None, with_raster: bool = True) -> list:
+    """``(vector PageElements or None, raster PageElements or None, set aside, reasons)`` per
+    page of one sample file. A scanned page keeps only what looks printed, its rules cut to their
+    printed span (see :func:`printed_sort`); ``reasons`` says, per element id, why an element
+    looks like fill-in or was cut."""
+    out = []
+    for page, vec, ras in reference_pages(path, limits, pages, with_raster):
+        why: dict = {}
+        aside: tuple = ()
+        if vec is None and ras is not None:
+            ras, aside, why = printed_sort(page, ras)
+        out.append((vec, ras, aside, why))
+    return out
+
+
+def update(template: Template, samples: Sequence[str], limits: ReadLimits = ReadLimits()) -> Template:
+    """The template grown by more scanned samples (files or folders of them): see
+    :func:`layoutcheck.samples.update_template`."""
+    from .samples import update_template
+
+    paths = sample_files(samples)
+    return update_template(template, [sample_pages(p, limits, None, False) for p in paths], paths)
 
 
 def printed_sort(page: RasterPage, found: PageElements) -> tuple[PageElements, tuple[Element, ...], dict]:

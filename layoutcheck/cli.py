@@ -1,21 +1,22 @@
-"""Command line: ``layoutcheck learn``, ``layoutcheck verify``, ``layoutcheck demo``.
+"""Command line: ``layoutcheck learn``, ``verify``, ``watch``, ``show`` and ``demo``.
 
-Thin on purpose: everything a library user would also need lives in the modules it calls.
+Thin on purpose: everything a library user would also need lives in :mod:`layoutcheck.api`, the
+only part of the library this module uses.
 Exit codes: 0 every page passed, 1 some page did not, 2 usage error or unreadable template.
 """
 
 from __future__ import annotations
 
-import os
 import sys
 from pathlib import Path
 
 import click
+from click_option_group import optgroup
 
 from . import __version__
-from .sources import ReadLimits
-from .template import TemplateError, load_template, save_template
-from .verdict import VERDICTS, Tolerances
+from .api import (BatchOptions, CheckSettings, LearnError, ReadLimits, TemplateError, Tolerances, expand_inputs,
+                  learn as learn_template, learning_summary, load_templates as api_load_templates, parse_pages,
+                  run_batch, save_template, summary_table, update_template, write_report)
 
 EXIT_PASS, EXIT_FLAGGED, EXIT_USAGE = 0, 1, 2
 
@@ -27,53 +28,11 @@ class TemplateProblem(click.ClickException):
 
 
 def load_templates(paths) -> list:
-    """Templates from files and folders of ``*.json`` files."""
-    out = []
-    for p in paths:
-        pp = Path(p)
-        files = sorted(pp.glob("*.json")) if pp.is_dir() else [pp]
-        if pp.is_dir() and not files:
-            raise TemplateProblem(f"{p}: folder holds no template (*.json) files")
-        for f in files:
-            try:
-                out.append(load_template(f))
-            except TemplateError as exc:
-                raise TemplateProblem(str(exc)) from None
-    return out
-
-
-def summary_table(records: list[dict]) -> str:
-    """A plain table a person reads: one row per page, then counts per verdict."""
-    rows = [("file", "page", "verdict", "template", "turn°", "scale", "shift mm", "support", "what")]
-    for r in records:
-        p = r.get("pose") or {}
-        what = r["error"] or "; ".join(f["message"] for f in r["findings"][:2]) or "-"
-        shift = p.get("shift_mm")
-        rows.append((
-            os.path.basename(r["source"]), str(r["page"] if r["page"] is not None else "-"), r["verdict"],
-            r.get("template") or "-",
-            f"{p['rotation_deg']:+.2f}" if p else "-",
-            f"{p['scale']:.4f}" if p else "-",
-            f"{shift[0]:+.1f},{shift[1]:+.1f}" if shift else "-",
-            f"{r['support']:.2f}", what[:90],
-        ))
-    widths = [max(len(row[i]) for row in rows) for i in range(len(rows[0]) - 1)]
-    lines = []
-    for k, row in enumerate(rows):
-        lines.append("  ".join(cell.ljust(w) for cell, w in zip(row[:-1], widths)) + "  " + row[-1])
-        if k == 0:
-            lines.append("  ".join("-" * w for w in widths) + "  " + "-" * 4)
-    lines.append("")
-    lines.append(counts_line(records))
-    return "\n".join(lines)
-
-
-def counts_line(records: list[dict]) -> str:
-    counts = {v: 0 for v in VERDICTS}
-    for r in records:
-        counts[r["verdict"]] = counts.get(r["verdict"], 0) + 1
-    parts = [f"{counts[v]} {v}" for v in reversed(VERDICTS) if counts[v]]
-    return f"{len(records)} page(s): " + (", ".join(parts) if parts else "none")
+    """Templates from files and folders of ``*.json`` files; an unreadable one ends the command."""
+    try:
+        return list(api_load_templates(*paths))
+    except TemplateError as exc:
+        raise TemplateProblem(str(exc)) from None
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -95,11 +54,8 @@ def main() -> None:
 @click.option("--password", help="Password of an encrypted reference PDF.")
 def learn(references, output, update, name, pages_spec, dpi, section_names, zones_file, password):
     """Learn a template from a reference (a blank PDF or a clean scan), or from several good samples."""
-    from .check import LearnError, learn as learn_template, learning_summary, parse_pages, sample_files
-
     if output is None and update is None:
         raise click.UsageError("give the template file to write with -o/--output")
-
     try:
         pages = parse_pages(pages_spec)
     except ValueError as exc:
@@ -110,23 +66,15 @@ def learn(references, output, update, name, pages_spec, dpi, section_names, zone
             raise click.BadParameter(f"{item!r} is not ID=NAME", param_hint="--section-name")
         k, v = item.split("=", 1)
         names[k.strip()] = v.strip()
-    limits = ReadLimits(dpi=dpi, password=password)
     try:
-        files = sample_files(references)
         if update:
-            from .samples import update_template
-
-            try:
-                template = update_template(load_template(update), files, limits)
-            except TemplateError as exc:
-                raise TemplateProblem(str(exc)) from None
+            template = update_template(update, list(references), dpi=dpi, password=password, zones=zones_file)
             output = output or update
         else:
-            template = learn_template(files, name=name, pages=pages, limits=limits, section_names=names)
-        if zones_file:
-            from .zones import apply_zone_file
-
-            template = apply_zone_file(template, zones_file)
+            template = learn_template(list(references), name=name, pages=pages, dpi=dpi, password=password,
+                                      section_names=names, zones=zones_file)
+    except TemplateError as exc:
+        raise TemplateProblem(str(exc)) from None
     except LearnError as exc:
         raise click.ClickException(str(exc)) from None
     save_template(template, output)
@@ -135,14 +83,47 @@ def learn(references, output, update, name, pages_spec, dpi, section_names, zone
     click.echo(f"wrote {output}")
 
 
-def tolerance_options(f):
-    f = click.option("--max-skew", type=float, default=Tolerances.max_skew_deg, show_default=True, help="Degrees of turn accepted.")(f)
-    f = click.option("--max-scale-error", type=float, default=Tolerances.max_scale_error_pct, show_default=True, help="Percent scale error accepted.")(f)
-    f = click.option("--max-shift", type=float, default=Tolerances.max_shift_mm, show_default=True, help="Millimetres of shift accepted.")(f)
-    f = click.option("--element-tolerance", type=float, default=Tolerances.element_tolerance_mm, show_default=True, help="Millimetres an element may sit off its place.")(f)
-    f = click.option("--element-size-tolerance", type=float, default=Tolerances.element_size_pct, show_default=True, help="Percent size change of an element accepted.")(f)
-    f = click.option("--min-support", type=float, default=Tolerances.min_support, show_default=True, help="Share of elements that must agree for the page to be the form.")(f)
+def _stack(f, decorators):
+    """Apply decorators listed in the order they show in ``--help``."""
+    for d in reversed(decorators):
+        f = d(f)
     return f
+
+
+def input_options(f):
+    """Inputs: how files are read, and which further templates to choose from."""
+    return _stack(f, [
+        optgroup.group("Inputs"),
+        optgroup.option("--dpi", type=float, help="Resolution of scans that do not state one."),
+        optgroup.option("--password", help="Password for encrypted PDFs."),
+        optgroup.option("--max-pages", type=int, default=ReadLimits.max_pages, show_default=True, help="Most pages read from one file."),
+        optgroup.option("--max-pixels", type=int, default=ReadLimits.max_pixels, show_default=True, help="Largest image decoded, in pixels."),
+        optgroup.option("--also", "more_templates", multiple=True, type=click.Path(exists=True), help="A further template (file or folder) to choose from."),
+    ])
+
+
+def output_options(json_help: str, report_help: str):
+    """Outputs: records, report, quiet."""
+    def apply(f):
+        return _stack(f, [
+            optgroup.group("Outputs"),
+            optgroup.option("--json", "json_out", type=click.Path(dir_okay=False, allow_dash=True), help=json_help),
+            optgroup.option("--report", "report_out", type=click.Path(), help=report_help),
+            optgroup.option("-q", "--quiet", is_flag=True, help="No summary table and no progress bar."),
+        ])
+    return apply
+
+
+def tolerance_options(f):
+    return _stack(f, [
+        optgroup.group("Tolerances"),
+        optgroup.option("--max-skew", type=float, default=Tolerances.max_skew_deg, show_default=True, help="Degrees of turn accepted."),
+        optgroup.option("--max-scale-error", type=float, default=Tolerances.max_scale_error_pct, show_default=True, help="Percent scale error accepted."),
+        optgroup.option("--max-shift", type=float, default=Tolerances.max_shift_mm, show_default=True, help="Millimetres of shift accepted."),
+        optgroup.option("--element-tolerance", type=float, default=Tolerances.element_tolerance_mm, show_default=True, help="Millimetres an element may sit off its place."),
+        optgroup.option("--element-size-tolerance", type=float, default=Tolerances.element_size_pct, show_default=True, help="Percent size change of an element accepted."),
+        optgroup.option("--min-support", type=float, default=Tolerances.min_support, show_default=True, help="Share of elements that must agree for the page to be the form."),
+    ])
 
 
 def make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support) -> Tolerances:
@@ -154,7 +135,7 @@ def make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, ele
 
 def handoff_options(f):
     """``--zones``, ``--normalise DIR``, ``--normalise-dpi``, ``--normalise-format``, passed on as
-    one ``handoff`` dict of :class:`~layoutcheck.check.CheckSettings` fields."""
+    one ``handoff`` dict of :class:`~layoutcheck.api.CheckSettings` fields."""
     import functools
 
     @functools.wraps(f)
@@ -163,76 +144,77 @@ def handoff_options(f):
                    "normalise_format": normalise_format.lower()}
         return f(*args, handoff=handoff, **kwargs)
 
-    inner = click.option("--normalise-format", type=click.Choice(["png", "tiff"], case_sensitive=False), default="png", show_default=True,
-                         help="Format of normalised page images (the dpi is stored in the file).")(inner)
-    inner = click.option("--normalise-dpi", type=click.FloatRange(min=50, max=1200), default=None,
-                         help="Resolution of normalised images (default: the scan's; 200 for born-digital pages).")(inner)
-    inner = click.option("--normalise", "normalise_dir", type=click.Path(file_okay=False), default=None,
-                         help="Write each recognised page, turned, scaled and shifted into the template's frame, to this folder.")(inner)
-    inner = click.option("--zones", "zones", is_flag=True, help="Add to each record where the template's zones lie on the page (pixels for scans, points for PDFs).")(inner)
-    return inner
+    return _stack(inner, [
+        optgroup.group("Hand-off to OCR"),
+        optgroup.option("--zones", "zones", is_flag=True, help="Add to each record where the template's zones lie on the page (pixels for scans, points for PDFs)."),
+        optgroup.option("--normalise", "normalise_dir", type=click.Path(file_okay=False), default=None,
+                        help="Write each recognised page, turned, scaled and shifted into the template's frame, to this folder."),
+        optgroup.option("--normalise-dpi", type=click.FloatRange(min=50, max=1200), default=None,
+                        help="Resolution of normalised images (default: the scan's; 200 for born-digital pages)."),
+        optgroup.option("--normalise-format", type=click.Choice(["png", "tiff"], case_sensitive=False), default="png", show_default=True,
+                        help="Format of normalised page images (the dpi is stored in the file)."),
+    ])
 
 
-def batch_options(f):
+def batch_options(resume: bool = True):
     """``--jobs``, ``--resume``, ``--page-timeout``, ``--engine``, ``--scheduler``, passed on as
-    one ``batch`` dict (see :mod:`layoutcheck.batch`)."""
+    one ``batch`` dict (see :mod:`layoutcheck.batch`); ``watch`` always resumes, so has no ``--resume``."""
     import functools
 
-    @functools.wraps(f)
-    def inner(*args, jobs, resume, page_timeout, engine, scheduler, **kwargs):
-        batch = {"jobs": jobs, "resume": resume, "page_timeout": page_timeout, "engine": engine, "scheduler": scheduler}
-        return f(*args, batch=batch, **kwargs)
+    def apply(f):
+        @functools.wraps(f)
+        def inner(*args, jobs, page_timeout, engine, scheduler, resume=False, **kwargs):
+            batch = {"jobs": jobs, "resume": resume, "page_timeout": page_timeout, "engine": engine, "scheduler": scheduler}
+            return f(*args, batch=batch, **kwargs)
 
-    inner = click.option("--scheduler", metavar="ADDRESS", help="Dask scheduler to run on, e.g. tcp://scheduler-host:8786 (with --engine dask).")(inner)
-    inner = click.option("--engine", type=click.Choice(["local", "dask"]), default="local", show_default=True,
-                         help="Run pages in local worker processes, or on Dask distributed (a local cluster unless --scheduler).")(inner)
-    inner = click.option("--page-timeout", type=click.FloatRange(min=0, min_open=True), default=None, metavar="SECONDS",
-                         help="Most seconds one page may take; its worker is then replaced and the page gets an error record.")(inner)
-    inner = click.option("--resume", is_flag=True, help="Continue an interrupted run: keep the records in --json FILE, check only the pages not there.")(inner)
-    inner = click.option("-j", "--jobs", type=click.IntRange(min=1), default=1, show_default=True, help="Pages checked at once, in worker processes.")(inner)
-    return inner
+        return _stack(inner, [
+            optgroup.group("Batch"),
+            optgroup.option("-j", "--jobs", type=click.IntRange(min=1), default=1, show_default=True, help="Pages checked at once, in worker processes."),
+            *([optgroup.option("--resume", is_flag=True, help="Continue an interrupted run: keep the records in --json FILE, check only the pages not there.")]
+              if resume else []),
+            optgroup.option("--page-timeout", type=click.FloatRange(min=0, min_open=True), default=None, metavar="SECONDS",
+                            help="Most seconds one page may take; its worker is then replaced and the page gets an error record."),
+            optgroup.option("--engine", type=click.Choice(["local", "dask"]), default="local", show_default=True,
+                            help="Run pages in local worker processes, or on Dask distributed (a local cluster unless --scheduler)."),
+            optgroup.option("--scheduler", metavar="ADDRESS", help="Dask scheduler to run on, e.g. tcp://scheduler-host:8786 (with --engine dask)."),
+        ])
+    return apply
 
 
-def _progress_bar():
-    """A one-line progress bar on standard error, only when it is a terminal."""
-    stream = sys.stderr
-    if not stream.isatty():
-        return None, lambda: None
-    state = {"last": 0.0}
+class ProgressBar:
+    """Pages done, pages per second and time left on standard error (tqdm), on a terminal only.
 
-    def show(done: int, total: int) -> None:
-        import time as _time
+    The total starts as the number of files (one page each) and grows as longer files are opened.
+    """
 
-        now = _time.monotonic()
-        if now - state["last"] < 0.1 and done < total:
-            return
-        state["last"] = now
-        width = 30
-        filled = int(width * done / total) if total else 0
-        stream.write(f"\r[{'#' * filled}{'.' * (width - filled)}] {done}/{total} pages")
-        stream.flush()
+    def __init__(self, files: int, stream=None):
+        from tqdm import tqdm
 
-    def end() -> None:
-        stream.write("\n")
-        stream.flush()
+        self.bar = tqdm(total=files, unit="page", file=stream or sys.stderr, dynamic_ncols=True, leave=True,
+                        desc=f"{files} file(s)")
 
-    return show, end
+    def update_to(self, done: int, total: int) -> None:
+        if total != self.bar.total:
+            self.bar.total = total
+        self.bar.update(done - self.bar.n)
+
+    def close(self) -> None:
+        self.bar.close()
+
+
+def _progress(quiet: bool):
+    """A ProgressBar factory when standard error is a terminal and not ``quiet``, else None."""
+    return None if quiet or not sys.stderr.isatty() else ProgressBar
 
 
 @main.command()
 @click.argument("template", type=click.Path(exists=True))
 @click.argument("inputs", nargs=-1, required=True)
-@click.option("--json", "json_out", type=click.Path(dir_okay=False, allow_dash=True), help="Write JSON Lines records here ('-' for standard output).")
-@click.option("--report", "report_out", type=click.Path(), help="Write an HTML report here.")
-@click.option("--dpi", type=float, help="Resolution of scans that do not state one.")
-@click.option("--password", help="Password for encrypted PDFs.")
-@click.option("--max-pages", type=int, default=ReadLimits.max_pages, show_default=True, help="Most pages read from one file.")
-@click.option("--max-pixels", type=int, default=ReadLimits.max_pixels, show_default=True, help="Largest image decoded, in pixels.")
-@click.option("--also", "more_templates", multiple=True, type=click.Path(exists=True), help="A further template (file or folder) to choose from.")
+@input_options
+@output_options("Write JSON Lines records here ('-' for standard output).", "Write an HTML report here.")
 @tolerance_options
-@click.option("-q", "--quiet", is_flag=True, help="No summary table.")
+@batch_options()
 @handoff_options
-@batch_options
 def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max_pixels, more_templates,
            max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, quiet,
            handoff, batch):
@@ -241,9 +223,6 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     INPUTS are files, folders (searched recursively), globs, or '-' for a list of paths on
     standard input. Each page gets one JSON Lines record, in input and page order.
     """
-    from .batch import BatchOptions, expand_inputs, run_batch
-    from .check import CheckSettings
-
     templates = load_templates([template, *more_templates])
     tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support)
     settings = CheckSettings(tolerances=tol, **handoff)
@@ -260,12 +239,14 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
                                scheduler=batch["scheduler"], resume=batch["resume"], keep_records=bool(report_out) or not quiet)
     except ValueError as exc:
         raise click.UsageError(str(exc)) from None
-    show, end = _progress_bar() if not quiet else (None, lambda: None)
+    make_bar = _progress(quiet)
+    bar = make_bar(len(files)) if make_bar else None
     try:
-        result = run_batch(files, templates, settings, limits, output=json_out, options=options, progress=show)
+        result = run_batch(files, templates, settings, limits, output=json_out, options=options,
+                           progress=bar.update_to if bar else None)
     finally:
-        if show is not None:
-            end()
+        if bar is not None:
+            bar.close()
     records = result.records
     if report_out:
         _write_report(report_out, records, templates, tol)
@@ -278,9 +259,80 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
 
 
 def _write_report(path, records, templates, tolerances):
-    from .report import write_report
-
     write_report(path, records, templates, tolerances)
+
+
+@main.command()
+@click.argument("template", type=click.Path(exists=True))
+@click.argument("inbox", type=click.Path(exists=True, file_okay=False))
+@optgroup.group("Watching")
+@optgroup.option("--out", "out_dir", required=True, type=click.Path(file_okay=False),
+                 help="Folder for records.jsonl, review.html and the pass/, review/ and error/ folders.")
+@optgroup.option("--once", is_flag=True, help="Take the files there now, then stop (for cron).")
+@optgroup.option("--settle", type=click.FloatRange(min=0), default=2.0, show_default=True, metavar="SECONDS",
+                 help="Take a file once its size and time have been still this long (at once when renamed in).")
+@input_options
+@output_options("Records file instead of OUT/records.jsonl ('-' is refused: records are appended file by file).",
+                "Review report instead of OUT/review.html.")
+@tolerance_options
+@batch_options(resume=False)
+@handoff_options
+def watch(template, inbox, out_dir, once, settle, json_out, report_out, dpi, password, max_pages, max_pixels,
+          more_templates, max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support,
+          quiet, handoff, batch):
+    """Watch INBOX: check each file dropped there against TEMPLATE, record it, and move it to
+    OUT/pass/, OUT/review/ or OUT/error/.
+
+    Records are appended to OUT/records.jsonl (each with where its file went); OUT/review.html
+    shows the flagged pages still in review/ and error/. Killed at any moment and started again,
+    every file ends in exactly one folder with exactly one set of records.
+    """
+    from .watch import WatchSettings, watch as run_watch
+
+    if json_out == "-":
+        raise click.UsageError("watch appends records file by file to a file; --json - is refused")
+    if batch["scheduler"] and batch["engine"] != "dask":
+        raise click.UsageError("--scheduler needs --engine dask")
+    templates = load_templates([template, *more_templates])
+    tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support)
+    settings = CheckSettings(tolerances=tol, **handoff)
+    limits = ReadLimits(max_pixels=max_pixels, max_pages=max_pages, dpi=dpi, password=password)
+    try:
+        options = BatchOptions(jobs=batch["jobs"], page_timeout=batch["page_timeout"], engine=batch["engine"],
+                               scheduler=batch["scheduler"])
+        ws = WatchSettings(settle=settle, once=once, records=json_out, report=report_out)
+    except ValueError as exc:
+        raise click.UsageError(str(exc)) from None
+    make_bar = _progress(quiet)
+
+    def log(line: str) -> None:
+        if make_bar:
+            from tqdm import tqdm
+
+            tqdm.write(line, file=sys.stderr)
+        else:
+            click.echo(line, err=True)
+
+    summary = run_watch(inbox, out_dir, templates, settings, limits, options, ws, log=log, progress_factory=make_bar)
+    files = summary.files
+    click.echo(f"{sum(files.values())} file(s) filed: {files['pass']} pass, {files['review']} review, {files['error']} error")
+    sys.exit(EXIT_PASS if summary.all_pass else EXIT_FLAGGED)
+
+
+@main.command()
+@click.argument("template", type=click.Path(exists=True, dir_okay=False))
+@click.option("-o", "--output", "output", required=True, type=click.Path(dir_okay=False), help="HTML file to write.")
+@click.option("--reference", type=click.Path(exists=True, dir_okay=False),
+              help="The reference the template was learned from, for the picture (default: looked for beside the template).")
+@click.option("--dpi", type=float, help="Resolution of a reference scan that does not state one.")
+def show(template, output, reference, dpi):
+    """Write a page that shows TEMPLATE: every element, section and zone drawn on the reference and
+    labelled, and a searchable table of the elements."""
+    from .api import show_template
+
+    (tmpl,) = load_templates([template])
+    path = show_template(tmpl, output, reference=reference, template_path=template, dpi=dpi)
+    click.echo(f"wrote {path}")
 
 
 @main.command()

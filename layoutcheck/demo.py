@@ -27,9 +27,7 @@ def sample_dir() -> Path:
 
 def run_demo(out_dir: Path, echo: Callable[[str], None] = print) -> int:
     """Run the demo into ``out_dir``; returns 0 when every verdict is the planted one."""
-    from .check import CheckSettings, check_file, learn
-    from .cli import summary_table
-    from .template import save_template
+    from .api import CheckSettings, Tolerances, check_file, learn, save_template, summary_table, write_report
 
     samples = sample_dir()
     out_dir.mkdir(parents=True, exist_ok=True)
@@ -50,7 +48,9 @@ def run_demo(out_dir: Path, echo: Callable[[str], None] = print) -> int:
     settings = CheckSettings(zones=True)
     normalised = CheckSettings(zones=True, normalise_dir=str(out_dir / "normalised"))
     for rel in inputs:
-        records.extend(check_file(str(samples / rel), templates, normalised if rel == NORMALISE_DEMO else settings))
+        results = check_file(str(samples / rel), templates, settings=normalised if rel == NORMALISE_DEMO else settings,
+                             errors="keep")
+        records.extend(r.to_record() for r in results)
     jsonl = out_dir / "results.jsonl"
     with open(jsonl, "w", encoding="utf-8") as fh:
         for r in records:
@@ -62,9 +62,6 @@ def run_demo(out_dir: Path, echo: Callable[[str], None] = print) -> int:
     wrong = [(k, v, got.get(k)) for k, v in truth.items() if got.get(k) != v]
     echo("")
     echo(f"records: {jsonl}")
-    from .report import write_report
-    from .verdict import Tolerances
-
     report = out_dir / "report.html"
     write_report(report, records, templates, Tolerances())
     echo(f"report:  {report}")

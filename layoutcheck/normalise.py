@@ -174,7 +174,7 @@ def normalise_page(page, pose: Pose, template_size_pt: tuple[float, float], out_
     try:
         if isinstance(page, VectorPage):
             out_dpi = out_dpi or VECTOR_DPI
-            raster = render_pdf_page(page.path or page.source, page.page, limits or ReadLimits(), out_dpi)
+            raster = render_pdf_page(page.path or page.source, page.page, limits or ReadLimits(), out_dpi, data=page.data)
             if isinstance(raster, PageError):
                 return {"path": None, "dpi": out_dpi, "error": raster.message}
         elif isinstance(page, RasterPage):

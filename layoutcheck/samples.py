@@ -18,8 +18,9 @@ import numpy as np
 
 from .consensus import SolverSettings, solve
 from .elements import Element, PageElements, frame_from_center
-from .sources import ReadLimits, where
-from .template import Template, TemplatePage, find_sections, match_raster_to_vector, with_raster_sections
+from .sources import where
+from .template import LearnError, Template, TemplatePage, find_sections, match_raster_to_vector, with_raster_sections
+from .zones import with_zones
 
 #: Share of samples an element must be found on to be part of the template (a majority).
 KEEP_SHARE = 0.5
@@ -108,23 +109,6 @@ def consensus_elements(samples: Sequence[PageElements], settings: SolverSettings
     return c.kept, c.unstable, c.slack
 
 
-def _sample_pages(path: str, limits: ReadLimits, pages: set[int] | None, with_raster: bool):
-    """``(vector PageElements or None, raster PageElements or None, set aside, reasons)`` per
-    page of one sample file. A scanned page keeps only what looks printed, its rules cut to their
-    printed span (see :func:`layoutcheck.check.printed_sort`); ``reasons`` says, per element
-    id, why an element looks like fill-in or was cut."""
-    from .check import printed_sort, reference_pages
-
-    out = []
-    for page, vec, ras in reference_pages(path, limits, pages, with_raster):
-        why: dict = {}
-        aside: tuple = ()
-        if vec is None and ras is not None:
-            ras, aside, why = printed_sort(page, ras)
-        out.append((vec, ras, aside, why))
-    return out
-
-
 def single_sample_warning(set_aside: int) -> str:
     """The plain warning a template learned from one scan carries."""
     found = f"{set_aside} element(s) were set aside as probable fill-in; " if set_aside else ""
@@ -136,8 +120,6 @@ def _scan_page(k: int, base: PageElements, c: Consensus, n: int, section_names, 
                aside: tuple = ()) -> TemplatePage:
     """A template page from the consensus of ``n`` scanned samples; ``aside`` are the base
     sample's elements that looked like fill-in before any consensus (seen on it only)."""
-    from .check import LearnError
-
     elements = tuple(c.kept)
     if len(elements) < 3:
         raise LearnError(f"page {k + 1}: the good samples agree on only {len(elements)} elements")
@@ -152,13 +134,15 @@ def _scan_page(k: int, base: PageElements, c: Consensus, n: int, section_names, 
     return with_raster_sections(tp)
 
 
-def learn_from_samples(paths: Sequence[str], name: str | None = None, pages: set[int] | None = None,
-                       limits: ReadLimits = ReadLimits(), section_names: dict[str, str] | None = None,
-                       with_raster: bool = True) -> Template:
-    """A template from several good samples of one form (see module docs)."""
-    from .check import LearnError, _default_name
+def learn_from_samples(per_sample: Sequence[Sequence[tuple]], paths: Sequence[str], name: str,
+                       section_names: dict[str, str] | None = None) -> Template:
+    """A template from several good samples of one form (see module docs).
 
-    per_sample = [_sample_pages(p, limits, pages, with_raster) for p in paths]
+    ``per_sample`` holds, for each sample file (named in ``paths``), one ``(vector elements or
+    None, raster elements or None, set aside, reasons)`` tuple per page, as read by
+    :func:`layoutcheck.check.sample_pages` (a scanned page already split into what looks
+    printed and what was set aside as fill-in, with the reason per element id).
+    """
     counts = {len(s) for s in per_sample}
     if len(counts) != 1:
         detail = ", ".join(f"{where(p, None)}: {len(s)}" for p, s in zip(paths, per_sample))
@@ -170,7 +154,8 @@ def learn_from_samples(paths: Sequence[str], name: str | None = None, pages: set
         unstable: list[str] = []
         slack: dict = {}
         if all(v is not None for v in vec_sets):
-            v_els, v_unstable, v_slack = consensus_elements(vec_sets)
+            v = consensus(vec_sets)
+            v_els, v_unstable, v_slack, seen = v.kept, v.unstable, v.slack, v.seen
             base = vec_sets[0]
             raster_els: tuple[Element, ...] = ()
             if ras_sets:
@@ -189,30 +174,28 @@ def learn_from_samples(paths: Sequence[str], name: str | None = None, pages: set
             raise LearnError(f"page {k + 1}: the good samples agree on only {len(elements)} elements")
         sections = find_sections(elements, base.width, base.height, section_names)
         tp = TemplatePage(k + 1, base.width, base.height, elements, sections, raster_els,
-                          slack=slack, unstable=tuple(unstable))
+                          slack=slack, unstable=tuple(unstable), seen={e.id: seen[e.id] for e in elements})
         out_pages.append(with_raster_sections(tp))
-    return Template(name or _default_name(paths[0]), tuple(out_pages), tuple(p.split("/")[-1] for p in paths))
+    return Template(name, tuple(out_pages), tuple(p.split("/")[-1] for p in paths))
 
 
-def update_template(template: Template, paths: Sequence[str], limits: ReadLimits = ReadLimits()) -> Template:
+def update_template(template: Template, per_sample: Sequence[Sequence[tuple]], paths: Sequence[str]) -> Template:
     """The template grown by more scanned samples of its form (accepted pages, say).
 
-    Each page of every new sample is matched to the template page; an element (kept or set
-    aside) is kept when it was found on more than :data:`KEEP_SHARE` of all the samples so far,
-    the template's own counting for the samples it was learned from, and set aside otherwise.
-    So an element only the first sample had goes, and a set-aside element that the new samples
-    show in place comes back. Places are averaged, weighted by how many samples saw them.
+    ``per_sample`` is read as for :func:`learn_from_samples`. Each page of every new sample is
+    matched to the template page; an element (kept or set aside) is kept when it was found on
+    more than :data:`KEEP_SHARE` of all the samples so far, the template's own counting for the
+    samples it was learned from, and set aside otherwise. So an element only the first sample
+    had goes, and a set-aside element that the new samples show in place comes back. Places are
+    averaged, weighted by how many samples saw them.
     """
-    from .check import LearnError
-
     paths = [str(p) for p in paths]
     if not paths:
         raise LearnError(f"{template.name}: no samples given to add")
-    per_sample = [_sample_pages(p, limits, None, False) for p in paths]
     for p, s in zip(paths, per_sample):
         if len(s) != len(template.pages):
             raise LearnError(f"{where(p, None)}: {len(s)} page(s), but template {template.name} has {len(template.pages)}")
-        if any(vec is not None for vec, _, _, _ in s):
+        if any(page[0] is not None for page in s):
             raise LearnError(f"{where(p, None)}: a born-digital page; add scanned samples (or learn again from the blank PDF)")
     pages = []
     for k, tp in enumerate(template.pages):
@@ -230,20 +213,15 @@ def update_template(template: Template, paths: Sequence[str], limits: ReadLimits
         pages.append(dataclasses.replace(new, zones=zones))
     refs = template.references + tuple(p.replace("\\", "/").split("/")[-1] for p in paths)
     warnings = tuple(w for w in template.warnings if not w.startswith("learned from one scanned sample"))
-    from .zones import with_zones
-
     return with_zones(dataclasses.replace(template, pages=tuple(pages), references=refs, warnings=warnings))
 
 
 def promote(template: Template, page: int, element_id: str) -> Template:
     """The template with a set-aside element of ``page`` taken into the form (a person's call).
 
-    Raises :class:`~layoutcheck.check.LearnError` naming the template, page and element when the
+    Raises :class:`~layoutcheck.template.LearnError` naming the template, page and element when the
     page has no such set-aside element.
     """
-    from .check import LearnError
-    from .zones import with_zones
-
     if not 1 <= page <= len(template.pages):
         raise LearnError(f"template {template.name}: no page {page}")
     tp = template.pages[page - 1]

@@ -15,6 +15,7 @@ Limits (pixels, pages, password) are enforced here, before anything large is dec
 from __future__ import annotations
 
 import contextlib
+import io
 import os
 import warnings
 from dataclasses import dataclass, field
@@ -59,6 +60,8 @@ class VectorPage:
     plumber: object = field(repr=False)
     rotation: int = 0
     path: str = ""
+    #: The PDF's content when it was read from memory (``path`` is then only its name).
+    data: bytes | None = field(default=None, repr=False)
 
     kind = "vector"
 
@@ -161,15 +164,23 @@ class Document:
         self.close()
 
 
-def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pages: set[int] | None = None) -> Document:
+def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pages: set[int] | None = None,
+                  data: bytes | None = None) -> Document:
     """Open one input file (PDF, PNG, JPEG, TIFF) and plan what it yields; never raises.
 
     The document's ``source`` (and so every record's) is the absolute path of the file, so that
-    any reader of a record finds the file again whatever its own working folder.
+    any reader of a record finds the file again whatever its own working folder. With ``data``,
+    the file's content is read from memory and ``path`` only names it, as given.
     """
-    source = record_path(path)
+    source = record_path(path) if data is None else str(path)
     p = Path(source)
     try:
+        if data is not None:
+            if not data:
+                return _failed(source, "empty file (0 bytes)")
+            if data[:1024].startswith(b"%PDF"):
+                return _PdfDocument.open(source, limits, pages, data)
+            return _ImageDocument.open(source, limits, pages, data)
         if not p.exists():
             return _failed(source, "no such file")
         if p.is_dir():
@@ -226,7 +237,7 @@ class _ImageDocument(Document):
         self._limits = limits
 
     @classmethod
-    def open(cls, source: str, limits: ReadLimits, pages: set[int] | None) -> Document:
+    def open(cls, source: str, limits: ReadLimits, pages: set[int] | None, data: bytes | None = None) -> Document:
         from PIL import Image, UnidentifiedImageError
 
         try:
@@ -234,7 +245,7 @@ class _ImageDocument(Document):
                 # Our own pixel limit is checked before anything is decoded; Pillow's bomb
                 # check stays on as a second guard (it refuses beyond twice its own limit).
                 warnings.simplefilter("ignore", Image.DecompressionBombWarning)
-                img = Image.open(source)
+                img = Image.open(io.BytesIO(data) if data is not None else source)
         except Image.DecompressionBombError as exc:
             return _failed(source, f"image is over the pixel limit; not decoded ({_one_line(exc)})")
         except UnidentifiedImageError:
@@ -252,14 +263,15 @@ class _ImageDocument(Document):
             self._img.seek(n - 1)
         except Exception as exc:
             return PageError(self.source, n, f"{where(self.source, n)}: frame could not be reached ({_one_line(exc)})")
-        return _image_page(self.source, n, self._img, self._limits)
+        return image_page(self.source, n, self._img, self._limits)
 
     def close(self) -> None:
         with contextlib.suppress(Exception):
             self._img.close()
 
 
-def _image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
+def image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
+    """One decoded frame (a Pillow image) as a grey :class:`RasterPage`, or a :class:`PageError`."""
     from PIL import Image, ImageOps
 
     w, h = frame.size
@@ -326,28 +338,29 @@ def _is_password_error(exc: BaseException) -> bool:
 
 
 class _PdfDocument(Document):
-    def __init__(self, source: str, plan: list, pdf, limits: ReadLimits):
+    def __init__(self, source: str, plan: list, pdf, limits: ReadLimits, data: bytes | None = None):
         super().__init__(source, plan)
         self._pdf = pdf
         self._limits = limits
+        self._data = data
         self._open_page = None
         self._pdfium = None
         self._walker = None
         self._seen: list = []  # pdfminer page objects walked so far (small)
 
     @classmethod
-    def open(cls, source: str, limits: ReadLimits, pages: set[int] | None) -> Document:
+    def open(cls, source: str, limits: ReadLimits, pages: set[int] | None, data: bytes | None = None) -> Document:
         import pdfplumber
 
         try:
-            pdf = pdfplumber.open(source, password=limits.password or "")
+            pdf = pdfplumber.open(io.BytesIO(data) if data is not None else source, password=limits.password or "")
         except Exception as exc:
             if _is_password_error(exc):
                 return _failed(source, "PDF is " + ("encrypted and the password is wrong" if limits.password
                                                     else "encrypted; give --password"))
             return _failed(source, f"damaged PDF ({_one_line(exc)})")
         try:
-            count = _pdfium_count(source, limits)
+            count = _pdfium_count(data if data is not None else source, limits)
             if count is None:
                 count = len(pdf.pages)
         except Exception as exc:
@@ -360,7 +373,7 @@ class _PdfDocument(Document):
             with contextlib.suppress(Exception):
                 pdf.close()
             return _failed(source, "PDF has no pages (empty or broken page tree)")
-        return cls(source, _numbers(source, count, limits, pages), pdf, limits)
+        return cls(source, _numbers(source, count, limits, pages), pdf, limits, data)
 
     def release(self) -> None:
         if self._open_page is not None:
@@ -378,7 +391,7 @@ class _PdfDocument(Document):
                 dpi = _image_dpi(pl, width)
                 self.release()
                 return self._render(n, dpi)
-            return VectorPage(self.source, n, width, height, pl, rot, self.source)
+            return VectorPage(self.source, n, width, height, pl, rot, self.source, self._data)
         except Exception as exc:
             self.release()
             return PageError(self.source, n, f"{where(self.source, n)}: damaged page ({_one_line(exc)})")
@@ -403,7 +416,8 @@ class _PdfDocument(Document):
 
         if self._pdfium is None:
             try:
-                self._pdfium = pdfium.PdfDocument(self.source, password=self._limits.password)
+                self._pdfium = pdfium.PdfDocument(self._data if self._data is not None else self.source,
+                                                  password=self._limits.password)
             except pdfium.PdfiumError as exc:
                 return PageError(self.source, n, f"{where(self.source, n)}: could not be rendered ({_one_line(exc)})")
         return _render_page(self._pdfium, self.source, n, self._limits, dpi)
@@ -424,7 +438,7 @@ class _PdfDocument(Document):
         self._pdfium = self._pdf = None
 
 
-def _pdfium_count(source: str, limits: ReadLimits) -> int | None:
+def _pdfium_count(source: str | bytes, limits: ReadLimits) -> int | None:
     """Page count from pypdfium2, which reads it without walking the page tree; None if it cannot."""
     import pypdfium2 as pdfium
 
@@ -476,17 +490,19 @@ def _image_dpi(pl, page_width: float) -> float:
     return snap_dpi(dpi) or 200.0
 
 
-def render_pdf_page(source: str, n: int, limits: ReadLimits, dpi: float, oversample: int = 1) -> Page:
+def render_pdf_page(source: str, n: int, limits: ReadLimits, dpi: float, oversample: int = 1,
+                    data: bytes | None = None) -> Page:
     """Render one PDF page to a grey :class:`RasterPage` with pypdfium2 (``/Rotate`` applied).
 
     With ``oversample`` k > 1 the page is rendered at k times ``dpi`` and each k x k block of
     pixels averaged: edges come out anti-aliased at their true places instead of snapped to the
-    pixel grid, as in a scanner's optics.
+    pixel grid, as in a scanner's optics. ``data``, when given, is the PDF's content (``source``
+    then only names it).
     """
     import pypdfium2 as pdfium
 
     try:
-        doc = pdfium.PdfDocument(source, password=limits.password)
+        doc = pdfium.PdfDocument(data if data is not None else source, password=limits.password)
     except pdfium.PdfiumError as exc:
         return PageError(source, n, f"{where(source, n)}: could not be rendered ({_one_line(exc)})")
     try:

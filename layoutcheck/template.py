@@ -32,6 +32,10 @@ class TemplateError(Exception):
     """A template file that cannot be used; the message is one line naming the file."""
 
 
+class LearnError(Exception):
+    """A reference that cannot be learned from; one line naming the file and page."""
+
+
 @dataclass(frozen=True)
 class Section:
     """A part of a page that belongs together: a bordered panel or a band between rules."""
@@ -133,6 +137,7 @@ class TemplatePage:
         out: dict = {}
         if self.samples:
             out["samples"] = self.samples
+        if self.seen:
             out["seen"] = {k: int(v) for k, v in self.seen.items()}
         if self.set_aside:
             out["set_aside"] = [e.to_dict() for e in self.set_aside]

@@ -27,9 +27,8 @@ from typing import Iterable, Sequence
 
 import numpy as np
 
-from .check import LearnError
 from .elements import POINTS_PER_INCH, Element, frame_contains, frame_overlap
-from .template import Template, TemplatePage, Zone, read_json_file
+from .template import LearnError, Template, TemplatePage, Zone, read_json_file
 
 #: Element kinds a zone may be made from when a page has no form fields.
 BOX_KINDS = ("box", "checkbox")

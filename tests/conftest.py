@@ -118,3 +118,52 @@ def vector_template(reference_pdf):
     from layoutcheck.check import learn
 
     return learn([str(reference_pdf)], name="T-7", with_raster=False)
+
+
+# -- every record the tests produce is validated against the shipped JSON Schema ---------------
+# The record schema is ours; the validator is the jsonschema package (draft 2020-12). The hooks
+# wrap the places records leave the library: the batch's record sink (verify, watch, check_file
+# of the API), the API's result object, and the check functions tests call directly.
+import functools  # noqa: E402
+
+import jsonschema  # noqa: E402
+
+import layoutcheck.api as _api  # noqa: E402
+import layoutcheck.batch as _batch  # noqa: E402
+import layoutcheck.check as _check  # noqa: E402
+
+RECORD_VALIDATOR = jsonschema.Draft202012Validator(_api.schema("record"))
+VALIDATED = {"records": 0}
+
+
+def validate_record(rec: dict) -> dict:
+    RECORD_VALIDATOR.validate(rec)
+    VALIDATED["records"] += 1
+    return rec
+
+
+def _validating(fn, pick=lambda out: [out]):
+    @functools.wraps(fn)
+    def inner(*args, **kwargs):
+        out = fn(*args, **kwargs)
+        for rec in pick(out):
+            validate_record(rec)
+        return out
+    return inner
+
+
+def _validating_iter(fn):
+    @functools.wraps(fn)
+    def inner(*args, **kwargs):
+        for rec in fn(*args, **kwargs):
+            yield validate_record(rec)
+    return inner
+
+
+_check.check_page = _validating(_check.check_page)
+_check.record_for = _validating(_check.record_for)
+_check.check_file = _validating_iter(_check.check_file)
+_sink_write = _batch.RecordSink.write
+_batch.RecordSink.write = lambda self, record: _sink_write(self, validate_record(record))
+_result_init = _api.PageResult.__init__
+_api.PageResult.__init__ = lambda self, record: _result_init(self, validate_record(record))

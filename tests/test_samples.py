@@ -6,7 +6,7 @@ import pytest
 
 from conftest import draw_form
 from layoutcheck.check import check_file, learn
-from layoutcheck.samples import consensus_elements
+from layoutcheck.samples import consensus, consensus_elements
 
 
 def test_extra_ink_of_one_sample_does_not_enter_the_template(tmp_path):
@@ -80,3 +80,5 @@ def test_consensus_of_one_sample_is_itself(tmp_path):
     assert [e.id for e in kept] == [e.id for e in pe.elements]
     assert [e.frame for e in kept] == [pytest.approx(e.frame, abs=1e-9) for e in pe.elements]
     assert unstable == [] and slack == {}
+    c = consensus([pe])
+    assert c.seen == {e.id: 1 for e in pe.elements} and c.dropped == []

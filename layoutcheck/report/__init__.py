@@ -106,15 +106,32 @@ def _common(records: Sequence[dict], templates: Sequence, tolerances: Tolerances
 
 
 def write_report(path, records: Sequence[dict], templates: Sequence, tolerances: Tolerances = Tolerances(),
-                 base_dir: str | os.PathLike | None = None) -> Path:
-    """Write the HTML report of ``records`` (see module docs); returns the file to open."""
+                 base_dir: str | os.PathLike | None = None, views: dict | None = None) -> Path:
+    """Write the HTML report of ``records`` (see module docs); returns the file to open.
+
+    ``views``, a dict the caller keeps between calls, holds each page's drawn view by (source,
+    page), so a report rewritten as records arrive draws each page once; entries of pages no
+    longer reported are dropped.
+    """
     records = list(records)
     env = environment()
     tindex = build.template_index(templates)
     common = _common(records, templates, tolerances)
     path = Path(path)
+
+    def view_of(i: int, r: dict) -> dict:
+        if views is None:
+            return build.page_view(i, r, tindex, tolerances, base_dir)
+        key = (r.get("source"), r.get("page"))
+        if key not in views:
+            views[key] = build.page_view(i, r, tindex, tolerances, base_dir)
+        return {**views[key], "anchor": f"p{i + 1}", "number": i + 1}
+
+    if views is not None:
+        for key in set(views) - {(r.get("source"), r.get("page")) for r in records}:
+            del views[key]
     if len(records) <= SINGLE_FILE_MAX_PAGES:
-        pages = [build.page_view(i, r, tindex, tolerances, base_dir) for i, r in enumerate(records)]
+        pages = [view_of(i, r) for i, r in enumerate(records)]
         html = env.get_template("report.html").render(
             csp=csp(True), script=Markup(FILTER_SCRIPT), pages=pages, mode="single", **common)
         _write(path, html)
@@ -127,7 +144,7 @@ def write_report(path, records: Sequence[dict], templates: Sequence, tolerances:
     entries = []
     n = len(records)
     for i, r in enumerate(records):
-        view = build.page_view(i, r, tindex, tolerances, base_dir)
+        view = view_of(i, r)
         name = f"{i + 1:05d}.html"
         view["href"] = f"{rel}/{name}"
         prev_href = f"{i:05d}.html" if i > 0 else None

@@ -203,13 +203,17 @@ def resolve(source: str, base_dir: str | os.PathLike | None) -> str:
     return str(p)
 
 
-def page_picture(path: str, page: int, dpi: float) -> tuple[np.ndarray, float, str]:
+def page_picture(path: str, page: int, dpi: float, kind: str | None = None) -> tuple[np.ndarray, float, str]:
     """Grey picture of one input page, its resolution and how the page was read.
 
     A scan (image file or a PDF that wraps one) is downscaled from its own resolution; a
-    born-digital PDF page is rendered at ``dpi``.
+    born-digital PDF page is rendered at ``dpi``. ``kind="vector"``, when the record already
+    says the page is born-digital, skips reading the page to find out (the costly part).
     """
     from ..sources import InputError, PageError, RasterPage, ReadLimits, read_pages, render_page_image
+
+    if kind == "vector":
+        return render_page_image(path, page, dpi), dpi, kind
 
     kind = None
     image = None
@@ -402,8 +406,10 @@ def _add_picture(view: dict, rec: dict, templates: dict, base_dir) -> None:
 
     path = resolve(str(rec.get("source", "")), base_dir)
     want_crops = bool(rec.get("offending")) and rec.get("pose")
+    # A record with a pose came from matching; those of scans always carry ``second_look``.
+    known = "vector" if rec.get("pose") and "second_look" not in rec else None
     try:
-        image, dpi, kind = page_picture(path, int(rec["page"]), CROP_DPI if want_crops else PAGE_DPI)
+        image, dpi, kind = page_picture(path, int(rec["page"]), CROP_DPI if want_crops else PAGE_DPI, known)
     except (InputError, OSError, ValueError) as exc:
         view["image_note"] = clean(f"The page picture could not be made: {exc}")
         return

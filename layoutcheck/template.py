@@ -23,7 +23,9 @@ import numpy as np
 
 from .elements import Element, PageElements, frame_contains, frame_overlap, merge_frames
 
-FORMAT_VERSION = 1
+#: Version 2 adds the optional ``form`` and ``revision`` fields; a template without them is still
+#: written as version 1, so layoutcheck releases that read only version 1 keep reading it.
+FORMAT_VERSION = 2
 FORMAT_NAME = "layoutcheck-template"
 
 
@@ -133,11 +135,24 @@ class TemplatePage:
 
 @dataclass(frozen=True)
 class Template:
-    """A learned form: a name and its pages."""
+    """A learned form: a name and its pages.
+
+    ``form`` and ``revision`` say that the template is one revision of a form: templates that
+    share a ``form`` are revisions of each other, and a page goes to the revision it matches
+    best (see :mod:`layoutcheck.identify`). A template without a ``form`` is a form of its own,
+    named ``name``.
+    """
 
     name: str
     pages: tuple[TemplatePage, ...]
     references: tuple[str, ...] = ()
+    form: str | None = None
+    revision: str | None = None
+
+    @property
+    def form_name(self) -> str:
+        """The form this template is a revision of (its own name when it declares none)."""
+        return self.form or self.name
 
     def page(self, number: int) -> TemplatePage:
         return self.pages[number - 1]
@@ -148,13 +163,15 @@ class Template:
         return build_graph(self)
 
     def to_dict(self) -> dict:
-        return {
+        out = {
             "format": FORMAT_NAME,
-            "format_version": FORMAT_VERSION,
+            "format_version": FORMAT_VERSION if self.form or self.revision else 1,
             "name": self.name,
-            "references": list(self.references),
-            "pages": [p.to_dict() for p in self.pages],
         }
+        if self.form or self.revision:
+            out.update(form=self.form, revision=self.revision)
+        out.update(references=list(self.references), pages=[p.to_dict() for p in self.pages])
+        return out
 
 
 # -- sections -------------------------------------------------------------------------------------
@@ -360,6 +377,8 @@ def template_from_dict(data: object, where: str = "template") -> Template:
         pages = tuple(TemplatePage.from_dict(p) for p in data["pages"])
         name = str(data["name"])
         references = tuple(str(r) for r in data.get("references") or [])
+        form = _optional_text(data.get("form"), "form")
+        revision = _optional_text(data.get("revision"), "revision")
     except (KeyError, TypeError, ValueError, IndexError, AttributeError) as exc:
         raise TemplateError(f"{where}: template is damaged ({type(exc).__name__}: {exc})") from None
     if not pages:
@@ -376,7 +395,17 @@ def template_from_dict(data: object, where: str = "template") -> Template:
         for z in p.zones:
             if not all(np.isfinite(v) for v in z.frame):
                 raise TemplateError(f"{where}: template page {p.number} zone {z.name!r} has an invalid frame")
-    return Template(name, pages, references)
+    return Template(name, pages, references, form, revision)
+
+
+def _optional_text(value: object, what: str) -> str | None:
+    """A form or revision field: text, a whole number (kept as its digits) or null."""
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, (str, int)):
+        raise ValueError(f"{what} must be text or a whole number, not {value!r}")
+    text = str(value).strip()
+    return text or None
 
 
 def read_json_file(path: str | os.PathLike, what: str, error: type[Exception]):

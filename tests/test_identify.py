@@ -94,4 +94,6 @@ def test_unrelated_page_is_unrecognised(templates):
 def test_few_templates_are_all_tried_in_order(templates):
     (found,) = [extract(p) for p in read_pages(SAMPLES / "inputs" / "101_exact.pdf")]
     two = templates[:2]
-    assert [(t.name, p.number) for t, p in identify.candidates(two, found)] == [(t.name, p.number) for t in two for p in t.pages]
+    index, ident = check.identify_page(two, found, CheckSettings())
+    tried = [index.page(r) for r in ident.tried]
+    assert [(t.name, p.number) for t, p in tried] == [(t.name, p.number) for t in two for p in t.pages]

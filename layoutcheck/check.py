@@ -202,6 +202,15 @@ def identify_page(templates, found: PageElements, settings: CheckSettings):
                            settings.identify)
 
 
+def alike_templates(index, settings: CheckSettings, neighbours: int = 3):
+    """Pairs of template pages of ``index`` that pages would be ambiguous between (see
+    :func:`layoutcheck.identify.alike_pairs`)."""
+    from .identify import alike_pairs
+
+    return alike_pairs(index, lambda tp, found: match_page(tp, found, settings), settings.tolerances.min_support,
+                       settings.identify, neighbours)
+
+
 def best_match(templates, found: PageElements, settings: CheckSettings):
     """The template page whose elements agree best: ``(template, page, match)``."""
     index, ident = identify_page(templates, found, settings)

@@ -1,4 +1,4 @@
-"""Command line: ``layoutcheck learn``, ``layoutcheck verify``, ``layoutcheck demo``.
+"""Command line: ``layoutcheck learn``, ``verify``, ``templates``, ``demo``.
 
 Thin on purpose: everything a library user would also need lives in the modules it calls.
 Exit codes: 0 every page passed, 1 some page did not, 2 usage error or unreadable template.
@@ -26,20 +26,32 @@ class TemplateProblem(click.ClickException):
     exit_code = EXIT_USAGE
 
 
-def load_templates(paths) -> list:
-    """Templates from files and folders of ``*.json`` files."""
+def load_templates(paths, warn=None):
+    """The templates of files and folders of ``*.json`` files, as one index.
+
+    A damaged template in a folder is left out, with one line naming it passed to ``warn``; a
+    damaged file named on its own, or no usable template at all, is a :class:`TemplateProblem`.
+    """
+    from .index import TemplateIndex
+
+    try:
+        index = TemplateIndex.open(paths)
+    except TemplateError as exc:
+        raise TemplateProblem(str(exc)) from None
+    for problem in index.problems:
+        (warn or (lambda m: click.echo(m, err=True)))(f"warning: {problem}; left out, the other templates are used")
+    return index
+
+
+def parse_expect_revision(items) -> tuple:
+    """``--expect-revision`` values: ``REV`` (every form) or ``FORM=REV``."""
     out = []
-    for p in paths:
-        pp = Path(p)
-        files = sorted(pp.glob("*.json")) if pp.is_dir() else [pp]
-        if pp.is_dir() and not files:
-            raise TemplateProblem(f"{p}: folder holds no template (*.json) files")
-        for f in files:
-            try:
-                out.append(load_template(f))
-            except TemplateError as exc:
-                raise TemplateProblem(str(exc)) from None
-    return out
+    for item in items:
+        form, _, rev = item.rpartition("=")
+        if not rev.strip():
+            raise click.BadParameter(f"{item!r} is not REVISION or FORM=REVISION", param_hint="--expect-revision")
+        out.append((form.strip() or None, rev.strip()))
+    return tuple(out)
 
 
 def summary_table(records: list[dict]) -> str:
@@ -91,7 +103,9 @@ def main() -> None:
 @click.option("--section-name", "section_names", multiple=True, metavar="ID=NAME", help="Name a found section, e.g. section-02='Cargo'.")
 @click.option("--zones", "zones_file", type=click.Path(exists=True, dir_okay=False), help="Zones JSON that overrides or adds field zones.")
 @click.option("--password", help="Password of an encrypted reference PDF.")
-def learn(references, output, name, pages_spec, dpi, section_names, zones_file, password):
+@click.option("--form", "form", help="The form this template is a revision of, e.g. KBH-101 (with --revision).")
+@click.option("--revision", help="Which revision of the form this template is, e.g. 3.")
+def learn(references, output, name, pages_spec, dpi, section_names, zones_file, password, form, revision):
     """Learn a template from a reference (a blank PDF or a clean scan), or from several good samples."""
     from .check import LearnError, learn as learn_template, parse_pages
 
@@ -114,6 +128,10 @@ def learn(references, output, name, pages_spec, dpi, section_names, zones_file, 
             template = apply_zone_file(template, zones_file)
     except LearnError as exc:
         raise click.ClickException(str(exc)) from None
+    if form or revision:
+        import dataclasses
+
+        template = dataclasses.replace(template, form=form or template.name, revision=revision)
     save_template(template, output)
     for p in template.pages:
         click.echo(f"{template.name} page {p.number}: {len(p.elements)} elements in {len(p.sections)} sections"
@@ -222,11 +240,13 @@ def _progress_bar():
 @click.option("--max-pages", type=int, default=ReadLimits.max_pages, show_default=True, help="Most pages read from one file.")
 @click.option("--max-pixels", type=int, default=ReadLimits.max_pixels, show_default=True, help="Largest image decoded, in pixels.")
 @click.option("--also", "more_templates", multiple=True, type=click.Path(exists=True), help="A further template (file or folder) to choose from.")
+@click.option("--expect-revision", "expect_revision", multiple=True, metavar="[FORM=]REVISION",
+              help="Pages should be this revision of their form (or of FORM); a page that is another revision is mismatched.")
 @tolerance_options
 @click.option("-q", "--quiet", is_flag=True, help="No summary table.")
 @handoff_options
 @batch_options
-def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max_pixels, more_templates,
+def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max_pixels, more_templates, expect_revision,
            max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, quiet,
            handoff, batch):
     """Check INPUT files (PDF, PNG, JPEG, TIFF) against TEMPLATE (a file or a folder of templates).
@@ -239,7 +259,11 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
 
     templates = load_templates([template, *more_templates])
     tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support)
-    settings = CheckSettings(tolerances=tol, **handoff)
+    expected = parse_expect_revision(expect_revision)
+    for form, rev in expected:
+        if not any((form is None or t.form_name == form) and t.revision == rev for t in templates):
+            raise click.BadParameter(f"no template is revision {rev}" + (f" of {form}" if form else ""), param_hint="--expect-revision")
+    settings = CheckSettings(tolerances=tol, expect_revision=expected, **handoff)
     limits = ReadLimits(max_pixels=max_pixels, max_pages=max_pages, dpi=dpi, password=password)
     if batch["resume"] and (not json_out or json_out == "-"):
         raise click.UsageError("--resume needs --json FILE (the run's output file)")
@@ -261,7 +285,7 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
             end()
     records = result.records
     if report_out:
-        _write_report(report_out, records, templates, tol)
+        _write_report(report_out, records, templates.by_name({r["template"] for r in records if r.get("template")}), tol)
     out = click.get_text_stream("stderr") if json_out == "-" else click.get_text_stream("stdout")
     if not quiet and records:
         click.echo("\n".join(summary_table(records).split("\n")[:-1]), file=out)
@@ -273,6 +297,35 @@ def _write_report(path, records, templates, tolerances):
     from .report import write_report
 
     write_report(path, records, templates, tolerances)
+
+
+@main.command("templates")
+@click.argument("template_dir", type=click.Path(exists=True))
+@click.option("--neighbours", type=click.IntRange(min=1), default=3, show_default=True,
+              help="Nearest templates (by layout signature) each template is compared with.")
+def templates_command(template_dir, neighbours):
+    """List the templates of TEMPLATE_DIR and warn about pairs so alike that pages would be ambiguous."""
+    from .check import CheckSettings, alike_templates
+
+    index = load_templates([template_dir], warn=click.echo)
+    rows = [("template", "form", "revision", "pages", "elements", "zones")]
+    for t in index:
+        rows.append((t.name, t.form_name, t.revision or "-", str(len(t.pages)), str(sum(p.elements for p in t.pages)),
+                     str(sum(p.zones for p in t.pages))))
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    for k, r in enumerate(rows):
+        click.echo("  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip())
+        if k == 0:
+            click.echo("  ".join("-" * w for w in widths))
+    pairs = alike_templates(index, CheckSettings(), neighbours)
+    for p in pairs:
+        a, b = index.info(p.row), index.info(p.other)
+        na, nb = int(index.rows[p.row][1]), int(index.rows[p.other][1])
+        what = "revisions that no element tells apart" if p.same_form else "too alike: pages would be ambiguous"
+        click.echo(f"warning: {a.name} page {na} and {b.name} page {nb} are {what} "
+                   f"({p.support:.0%} of {b.name}'s elements in place on a clean page of {a.name}; lead {p.margin:g})")
+    click.echo(f"{len(index)} template(s), {index.n_pages} page(s), {len(index.problems)} damaged, {len(pairs)} alike pair(s)")
+    sys.exit(EXIT_FLAGGED if pairs or index.problems else EXIT_PASS)
 
 
 @main.command()

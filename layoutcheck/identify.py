@@ -329,3 +329,49 @@ def told_apart(a_elements: Sequence, b_elements: Sequence, tol: float) -> tuple[
     same_class = np.array([[x.kind_class == y.kind_class for y in b_elements] for x in a_elements], bool).reshape(len(fa), len(fb))
     near = (np.abs(fa[:, None, :] - fb[None, :, :]).max(axis=2) <= tol) & same_class
     return list(np.flatnonzero(~near.any(axis=1))), list(np.flatnonzero(~near.any(axis=0)))
+
+
+@dataclass(frozen=True)
+class AlikePair:
+    """Two template pages so alike that a page of the first could be taken for the second."""
+
+    row: int
+    other: int
+    #: Share of the other's judged elements in place on a clean page of the first.
+    support: float
+    #: Evidence the first leads by on its own clean page (see the module notes).
+    margin: float
+    same_form: bool
+
+
+def alike_pairs(index, solve: Callable, min_support: float, settings: IdentifySettings = IdentifySettings(),
+                neighbours: int = 3) -> list[AlikePair]:
+    """Pairs of template pages that pages would be ambiguous between.
+
+    Each template page is taken as a clean page (as scans show it, where the template knows
+    that) and identified against its ``neighbours`` nearest template pages by signature and its
+    own revisions, with the rules of :func:`identify`: a pair is reported when the other is
+    accepted and the page's own template does not lead it by the ambiguity margin.
+
+    ``solve(template_page, found) -> Match``.
+    """
+    out: dict[tuple[int, int], AlikePair] = {}
+    for a in range(index.n_pages):
+        _, pa = index.page(a)
+        src = "raster" if pa.raster_elements else "vector"
+        found = PageElements(pa.width, pa.height, pa.elements_for(src), source=src)
+        own = solve(pa, found)
+        near = [int(r) for r in index.ranked(found) if r != a][:neighbours]
+        for b in dict.fromkeys(near + index.siblings(a)):
+            key = (min(a, b), max(a, b))
+            if key in out:
+                continue
+            m = solve(index.page(b)[1], found)
+            if m.pose is None or m.support < min_support:
+                continue
+            same = index.group(a) == index.group(b)
+            margin = evidence(own) - evidence(m)
+            limit = settings.revision_margin if same else settings.ambiguity_margin * max(judged_count(own), 1)
+            if margin < limit:
+                out[key] = AlikePair(a, b, m.support, margin, same)
+    return sorted(out.values(), key=lambda p: (p.row, p.other))

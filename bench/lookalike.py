@@ -202,13 +202,13 @@ def revised(spec: FormSpec, change: str, revision: str, rng: np.random.Generator
     return dataclasses.replace(spec, sections=tuple(secs), revision=revision, change=change)
 
 
-def family(n_templates: int, seed: int = 0) -> list[FormSpec]:
-    """``n_templates`` form specs: ten forms in four revisions, the rest in one (module notes)."""
+def family(n_templates: int, seed: int = 0, n_revised: int = REVISED) -> list[FormSpec]:
+    """``n_templates`` form specs: ``n_revised`` forms in four revisions, the rest in one (module notes)."""
     out = []
     k = 0
     while len(out) < n_templates:
         base = base_form(k, seed)
-        if k < REVISED:
+        if k < n_revised:
             rng = np.random.default_rng([seed, k, 1])
             out.append(dataclasses.replace(base, revision="1"))
             out += [revised(base, c, str(j + 2), rng) for j, c in enumerate(CHANGES)]

@@ -19,7 +19,7 @@ from .elements import MM_PER_POINT, PageElements
 from .identify import IdentifySettings
 from .sources import PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page, where
 from .template import Template, TemplatePage, template_page, with_raster_sections
-from .verdict import SEVERITY, Finding, Tolerances, judge, offending
+from .verdict import SEVERITY, Finding, Tolerances, _people_first, judge, offending
 
 #: Resolution at which a born-digital reference is rendered to learn how scans of it look
 #: (200 dpi: common practice for office scans; the raster extractor works in mm, so scans at
@@ -403,7 +403,7 @@ def revision_differences(tp: TemplatePage, match: Match, other_tp: TemplatePage,
     words = []
     first = None
     for els, idx, status, t_words in ((a_els, only_a, status_a, names[0]), (b_els, only_b, status_b, names[1])):
-        for k in idx:
+        for k in sorted(idx, key=lambda k: _people_first(els[k])):
             r = status.get(els[k].id)
             if r is None or not r.judged:
                 continue

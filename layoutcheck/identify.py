@@ -3,10 +3,11 @@
 Matching a page against one template page costs a pose solve; against 1,000 templates it would
 cost 1,000. :func:`identify` first ranks every template page by the distance between layout
 signatures (32 numbers each, see :func:`signature`) and solves only a short list, nearest first.
-The list widens (the next nearest signatures, in stages four times larger, then all of them)
-while no template is accepted with a clear margin over the runner-up, so a page whose form the
-signature ranks low is still routed to it, and a page is called unrecognised only once every
-template page has been tried.
+The list widens (the next nearest signatures, one by one, then all of them) while no template is
+accepted with a clear margin over the runner-up, so a page whose form the signature ranks low is
+still routed to it, and a page is called unrecognised only once every template page has been
+tried. A template accepted without a clear margin (a look-alike of the house style, or a poor
+scan) widens the search only to :attr:`IdentifySettings.settle` template pages.
 
 The signature is built to change little when a form is filled in, scanned, shifted a few mm or
 printed at a slightly different scale, and to change much between different forms:
@@ -147,8 +148,9 @@ class IdentifySettings:
 
     #: Template pages solved first (nearest signatures).
     top: int = DEFAULT_TOP
-    #: Each further stage solves this many times more of the ranked template pages, until all.
-    growth: int = 4
+    #: Once a template is accepted without a clear margin, the search goes on at most to this
+    #: many template pages (nearest first) for a better one; with none accepted, to all.
+    settle: int = 48
     #: The search stops once the best template's support leads every other template page tried
     #: (revisions of the same page aside) by this much ...
     clear_margin: float = 0.2
@@ -163,8 +165,8 @@ class IdentifySettings:
     revision_margin: float = 1.0
 
     def __post_init__(self) -> None:
-        if self.top < 1 or self.growth < 2:
-            raise ValueError(f"identify settings: top must be at least 1 and growth at least 2, got {self.top}, {self.growth}")
+        if self.top < 1 or self.settle < self.top:
+            raise ValueError(f"identify settings: top must be at least 1 and settle at least top, got {self.top}, {self.settle}")
         for name in ("clear_margin", "sure_support", "ambiguity_margin", "revision_margin"):
             v = getattr(self, name)
             if not np.isfinite(v) or v < 0:
@@ -220,17 +222,6 @@ class Identification:
         return self.rival is not None
 
 
-def stages(n: int, top: int, growth: int) -> list[int]:
-    """Ends of the search stages over ``n`` ranked template pages: top, top*growth, ..., n."""
-    out = []
-    k = top
-    while k < n:
-        out.append(k)
-        k *= growth
-    out.append(n)
-    return out
-
-
 def identify(index, found: PageElements, solve: Callable, min_support: float,
              settings: IdentifySettings = IdentifySettings()) -> Identification:
     """The template page of ``index`` that ``found`` is, by the widening search (module notes).
@@ -270,17 +261,22 @@ def identify(index, found: PageElements, solve: Callable, min_support: float,
                 best = c
         return best  # type: ignore[return-value]
 
-    start = 0
-    best = None
-    for end in stages(n, settings.top, settings.growth):
-        run(order[start:end])
-        start = end
-        best = pick()
+    # The first shortlist is solved whole, so its runner-up is known; beyond it, the search
+    # stops as soon as a template is accepted with a clear margin. While none is accepted it
+    # goes on to the last template page; once one is, only as far as ``settle``.
+    run(order[:settings.top])
+    best = pick()
+    for k, r in enumerate(order[settings.top:], start=settings.top):
         if best.accepted:
             run(index.siblings(best.row))
             best = pick()
-            if _clear(best, tried, index, settings):
+            if _clear(best, tried, index, settings) or k >= settings.settle:
                 break
+        run([r])
+        best = pick()
+    if best.accepted:
+        run(index.siblings(best.row))
+        best = pick()
     assert best is not None
     return Identification(best, _rival(best, tried, index, settings), tried, len(order))
 

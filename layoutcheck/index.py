@@ -279,7 +279,7 @@ def _read_sources(sources: Sequence[str], store: bool) -> tuple[list[_Entry], li
                     got.append(_read_file(f, stored.get(f.name)))
                 except TemplateError as exc:
                     problems.append(str(exc))
-            if store and _changed(stored, got, files):
+            if store and _changed(stored, got):
                 _write_store(p, got)
             entries.extend(got)
         else:
@@ -308,7 +308,7 @@ def _with_path(info: TemplateInfo, path: Path, st: os.stat_result) -> TemplateIn
     return TemplateInfo(info.name, info.form, info.revision, info.pages, str(path), st.st_mtime_ns, st.st_size, info.sha256)
 
 
-def _changed(stored: dict, got: list[_Entry], files: list[Path]) -> bool:
+def _changed(stored: dict, got: list[_Entry]) -> bool:
     if set(stored) != {Path(e.info.path).name for e in got}:  # type: ignore[arg-type]
         return True
     return any(stored[Path(e.info.path).name].info != e.info for e in got)  # type: ignore[arg-type]

@@ -182,6 +182,7 @@ def test_each_revision_page_goes_to_its_own_revision(house, k):
     assert rec["verdict"] == "pass" and "ambiguous" not in rec
 
 
+@pytest.mark.slow
 def test_scans_of_two_revisions_a_box_apart_go_to_their_own(house):
     """Scans (turned, shifted, filled in, stamped) of revisions 1 and 2 of KBH-100: box moved 8 mm."""
     from layoutcheck.simulate import simulate_scan

@@ -157,3 +157,12 @@ def test_learn_writes_form_and_revision_and_old_templates_still_load(tmp_path, s
     for f in sorted((ROOT / "templates").glob("*.json")):  # version 1 files of the demo forms
         assert json.loads(f.read_text())["format_version"] == 1
         assert load_template(f).revision is None
+
+
+def test_expect_revision_must_name_a_revision_the_templates_have(folder, tmp_path, specs):
+    pdf = lookalike.draw_pdf(specs[0], tmp_path / "in.pdf")
+    res = CliRunner().invoke(main, ["verify", str(folder), pdf, "--expect-revision", "KBH-100=9"])
+    assert res.exit_code == 2
+    assert "Invalid value for --expect-revision: no template is revision 9 of KBH-100" in res.output
+    res = CliRunner().invoke(main, ["verify", str(folder), pdf, "--expect-revision", "KBH-100="])
+    assert res.exit_code == 2 and "'KBH-100=' is not REVISION or FORM=REVISION" in res.output

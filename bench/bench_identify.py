@@ -22,7 +22,8 @@ Run (each part stays under ten minutes on a shared machine)::
     python bench/bench_identify.py --part 1/3 && python bench/bench_identify.py --part 2/3 \\
       && python bench/bench_identify.py --part 3/3 && python bench/bench_identify.py --report
 
-which writes bench/results/identify.md.
+which writes bench/results/identify.md. ``--moved N --part K/N`` adds N more pages of the revision
+pairs a box apart (kept apart from the plan's rows and reported in a table of their own).
 """
 
 from __future__ import annotations
@@ -253,6 +254,8 @@ def main() -> None:
     ap.add_argument("--part", default="1/1", help="Check pages K, K+N, ... of the plan (K/N), and keep their rows.")
     ap.add_argument("--report", action="store_true", help="Measure start-up and memory, and write the report from the rows kept.")
     ap.add_argument("--extra", type=int, default=100, help="Pages of forms only in the 1,000.")
+    ap.add_argument("--moved", type=int, default=0,
+                    help="Instead of the plan, this many more pages of revisions 1 and 2 (a box moved 8 mm) of the ten revised forms.")
     ap.add_argument("--keep", type=Path, default=Path(tempfile.gettempdir()) / "bench-identify",
                     help="Folder for the templates, pages and rows between parts.")
     args = ap.parse_args()
@@ -265,9 +268,10 @@ def main() -> None:
     dirs = {n: tmp / f"t{n}" for n in (100, 1000)}
     if args.report:
         rows = [r for f in sorted(tmp.glob("rows-*.json")) for r in json.loads(f.read_text())]
+        moved = [r for f in sorted(tmp.glob("moved-*.json")) for r in json.loads(f.read_text())]
         procs = processes(tmp, dirs, specs1000)
         meta = json.loads((tmp / "meta.json").read_text())
-        text = report(rows, procs, meta, sorted(f.name for f in tmp.glob("rows-*.json")), args)
+        text = report(rows, procs, meta, sorted(f.name for f in tmp.glob("rows-*.json")), args, moved)
         print(text)
         (ROOT / "bench" / "results").mkdir(parents=True, exist_ok=True)
         (ROOT / "bench" / "results" / "identify.md").write_text(text + "\n")
@@ -293,6 +297,9 @@ def main() -> None:
 
     rng = np.random.default_rng(11)
     plan = page_plan(specs100, specs1000, args.extra, rng)
+    if args.moved:
+        pair = [k for k, s in enumerate(specs100) if s.revision and s.change in (None, "moved")]
+        plan = [(pair[j % len(pair)], True) for j in range(args.moved)]
     part, parts = (int(v) for v in args.part.split("/"))
     rows = []
     for i, (k, in100) in list(enumerate(plan))[part - 1::parts]:
@@ -302,7 +309,8 @@ def main() -> None:
         if not pdf.exists():
             lookalike.draw_pdf(spec, pdf)
         t0 = time.perf_counter()
-        scan = simulate_scan(pdf, **nuisances(i, np.random.default_rng([11, i])))
+        seed = i + (100_000 if args.moved else 0)  # the extra pages are other scans of the same forms
+        scan = simulate_scan(pdf, **nuisances(seed, np.random.default_rng([11, seed])))
         t_scan = time.perf_counter() - t0
         page = RasterPage(source=str(pdf), page=1, image=scan.image, dpi=scan.dpi, bitonal=scan.bitonal)
         t0 = time.perf_counter()
@@ -324,7 +332,7 @@ def main() -> None:
                                                                        if isinstance(v, tuple) and len(v) > 3), file=sys.stderr)
         if len(rows) % 20 == 0:
             print(f"{len(rows)} pages, {time.perf_counter() - t_start:.0f} s", file=sys.stderr, flush=True)
-    (tmp / f"rows-{part}of{parts}.json").write_text(json.dumps(rows))
+    (tmp / f"{'moved' if args.moved else 'rows'}-{part}of{parts}.json").write_text(json.dumps(rows))
     print(f"part {args.part}: {len(rows)} pages in {time.perf_counter() - t_start:.0f} s", file=sys.stderr)
 
 
@@ -356,7 +364,7 @@ def processes(tmp: Path, dirs: dict, specs1000) -> list:
     return procs
 
 
-def report(rows, procs, meta, parts, args) -> str:
+def report(rows, procs, meta, parts, args, moved=()) -> str:
     out = [f"Written by `python bench/bench_identify.py --part K/N` for each part ({', '.join(parts)}), then "
            f"`--report`, on {platform.machine()}, 2 cores shared with other work, Python {platform.python_version()}. "
            f"1,000 templates built from element sets in {meta['generate_s']:.0f} s; {meta['json_mb']:.0f} MB of template JSON; "
@@ -392,6 +400,19 @@ def report(rows, procs, meta, parts, args) -> str:
                 cells.append(f"{right}/{len(rs)}")
             out.append(f"| {size} | {label} | " + " | ".join(cells) + " |")
     out.append("")
+    if moved:
+        out += [f"Two revisions a box apart: {len(moved)} more pages (`--moved {len(moved)}`, other scans: other nuisances), "
+                "revisions 1 and 2 of the ten revised forms, revision 2 having one box (and its caption) 8 mm to the side.", "",
+                "| templates | selection | revision 1 | revision 2 (box moved 8 mm) | both |", "|---:|---|---:|---:|---:|"]
+        for size in (100, 1000):
+            for which, label in LABELS.items():
+                cells = []
+                for rev in ("1", "2"):
+                    rs = [r for r in moved if r["revision"] == rev]
+                    cells.append(f"{sum(r[f'{which}{size}'][0] == r['name'] for r in rs)}/{len(rs)}")
+                right = sum(r[f"{which}{size}"][0] == r["name"] for r in moved)
+                out.append(f"| {size} | {label} | {cells[0]} | {cells[1]} | {right / len(moved):.1%} |")
+        out.append("")
 
     out += ["### Time per page (same pages, same run)", "",
             "Matching: choosing the template and judging the page (the solver, the second look), from the page's elements. "

@@ -448,7 +448,47 @@ def report(rows, procs, meta, parts, args, moved=()) -> str:
     for label, what, s in procs:
         worker = f"{s['children_mb']:.0f}" if "2 jobs" in what else "-"
         out.append(f"| {label} | {what} | {s['wall']:.2f} | {s['cpu']:.2f} | {s['self_mb']:.0f} | {worker} |")
+    out += ["", targets(rows, procs)]
     return "\n".join(out)
+
+
+def targets(rows, procs) -> str:
+    """The issue's targets, each with what this run measured."""
+    def share(size, which="new"):
+        rs = [r for r in rows if f"{which}{size}" in r]
+        return sum(r[f"{which}{size}"][0] == r["name"] for r in rs) / len(rs)
+
+    def ratio(size, whole, which="new"):
+        rs = [r for r in rows if f"{which}{size}" in r]
+        m = np.mean([r[f"{which}{size}"][2] for r in rs])
+        o = np.mean([r["own"][1] for r in rs])
+        e = np.mean([r["extract"] for r in rs]) if whole else 0.0
+        return (m + e) / (o + e)
+
+    lost = sum(r[f"new{n}"][1] == "unrecognised" and r["own"][0] != "unrecognised" for r in rows for n in (100, 1000) if f"new{n}" in r)
+    start = next(s for label, what, s in procs if label == "new" and what == "start-up")
+    one = next(s for label, what, s in procs if label == "new" and "1 template only" in what)
+    worker = next(s for label, what, s in procs if label == "new" and "2 jobs" in what)["children_mb"]
+    main1 = next(s for label, what, s in procs if label == "new" and what == "1 page, 1 job")["self_mb"]
+    lines = ["### Against the targets (new selection, defaults)", "",
+             "| target | measured | met |", "|---|---|---|",
+             f"| right form and revision >= 99.5 % with 100 templates | {share(100):.1%} | {'yes' if share(100) >= 0.995 else 'no'} |",
+             f"| right form and revision >= 99 % with 1,000 templates | {share(1000):.1%} | {'yes' if share(1000) >= 0.99 else 'no'} |",
+             f"| no page unrecognised that passes against its own template alone | {lost} such pages | {'yes' if lost == 0 else 'no'} |",
+             f"| time per page <= 2x one template, 100 templates | whole page {ratio(100, True):.2f}x; matching alone {ratio(100, False):.2f}x | "
+             f"{'yes' if ratio(100, True) <= 2 else 'no'} for the whole page; {'yes' if ratio(100, False) <= 2 else 'no'} for matching alone |",
+             f"| time per page <= 3x one template, 1,000 templates | whole page {ratio(1000, True):.2f}x; matching alone {ratio(1000, False):.2f}x | "
+             f"{'yes' if ratio(1000, True) <= 3 else 'no'} for the whole page; {'yes' if ratio(1000, False) <= 3 else 'no'} for matching alone |",
+             f"| start-up of verify with 1,000 templates <= 2 s | {start['cpu']:.2f} s CPU, {start['wall']:.2f} s wall (one template: "
+             f"{one['cpu']:.2f} s CPU, {one['wall']:.2f} s wall) | {'yes' if start['cpu'] <= 2 else 'no'} in CPU time; "
+             f"{'yes' if start['wall'] <= 2 else 'no'} in wall time on this shared machine |",
+             f"| peak memory per worker <= 400 MB | worker {worker:.0f} MB; one-job process {main1:.0f} MB | {'yes' if max(worker, main1) <= 400 else 'no'} |",
+             "",
+             "Matching alone (the template choice and the judging, without reading the page) costs about one solver run "
+             "per template page tried: three at least, plus every revision of a form once one is accepted; today's "
+             "selection is over the 2x and 3x ratios on this measure too. A first shortlist of two brings it down at the "
+             "same accuracy on these pages; the default stays at three for a wider margin in the first look."]
+    return "\n".join(lines)
 
 
 if __name__ == "__main__":

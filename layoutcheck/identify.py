@@ -211,15 +211,6 @@ class Identification:
     best: Candidate | None
     rival: Candidate | None = None
     tried: dict = field(default_factory=dict)
-    ranked: int = 0
-
-    @property
-    def accepted(self) -> bool:
-        return self.best is not None and self.best.accepted
-
-    @property
-    def ambiguous(self) -> bool:
-        return self.rival is not None
 
 
 def identify(index, found: PageElements, solve: Callable, min_support: float,
@@ -278,7 +269,7 @@ def identify(index, found: PageElements, solve: Callable, min_support: float,
         run(index.siblings(best.row))
         best = pick()
     assert best is not None
-    return Identification(best, _rival(best, tried, index, settings), tried, len(order))
+    return Identification(best, _rival(best, tried, index, settings), tried)
 
 
 def _others(best: Candidate, tried: dict, index) -> Iterator[Candidate]:

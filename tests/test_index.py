@@ -166,3 +166,14 @@ def test_expect_revision_must_name_a_revision_the_templates_have(folder, tmp_pat
     assert "Invalid value for --expect-revision: no template is revision 9 of KBH-100" in res.output
     res = CliRunner().invoke(main, ["verify", str(folder), pdf, "--expect-revision", "KBH-100="])
     assert res.exit_code == 2 and "'KBH-100=' is not REVISION or FORM=REVISION" in res.output
+
+
+@pytest.mark.slow
+def test_worker_processes_read_templates_through_the_index(folder, specs, tmp_path):
+    from layoutcheck.batch import BatchOptions, run_batch
+
+    index = TemplateIndex.open([folder])
+    pdfs = [lookalike.draw_pdf(specs[k], tmp_path / f"in{k}.pdf") for k in (2, 0, 3)]
+    result = run_batch(pdfs, index, options=BatchOptions(jobs=2, keep_records=True))
+    assert [(r["template"], r["verdict"]) for r in result.records] == [("KBH-102", "pass"), ("KBH-100", "pass"), ("KBH-103", "pass")]
+    assert len(index._loaded) == 0  # the pages were checked in the workers, which read the templates themselves

@@ -5,7 +5,7 @@ measured side by side in one run of that benchmark); this script puts them in on
 fixed order, under a short preface. Run it after the benchmarks:
 
     python bench/bench_consensus.py && python bench/bench_raster.py && python bench/bench_scans.py \\
-      && python bench/bench_normalise.py && python bench/bench_batch.py \\
+      && python bench/bench_fillin.py && python bench/bench_normalise.py && python bench/bench_batch.py \\
       && python bench/bench_identify.py --part 1/3 && python bench/bench_identify.py --part 2/3 \\
       && python bench/bench_identify.py --part 3/3 && python bench/bench_identify.py --report \\
       && python bench/collect.py
@@ -21,6 +21,7 @@ ORDER = (
     ("consensus", "Consensus solver: frame voting against RANSAC, and time against size"),
     ("raster", "Raster extraction: openings, floor, precision"),
     ("scans", "Simulated scans: accuracy, speed and memory end to end"),
+    ("fillin", "Templates from filled scans: one, three, and what they keep"),
     ("normalise", "Normalised pages and zones"),
     ("batch", "Batches: throughput, choosing among 50 templates, memory"),
     ("identify", "Identification among look-alike forms: 100 and 1,000 templates, revisions, start-up, memory"),

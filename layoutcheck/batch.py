@@ -11,7 +11,7 @@ What a batch guarantees
   once every ``fsync_seconds`` (default 1 s) and at the end; a power cut can lose at most the
   last second of records, and a line torn by it is dropped when the run is resumed.
 - ``resume=True`` reads the output file first: a torn last line is cut off, every complete
-  record's key (source path as given, page) counts as done, and only the remaining pages are
+  record's key (absolute source path, page) counts as done, and only the remaining pages are
   checked and appended. Resume uses the same input list, so pass the same arguments.
 - Pages run in worker processes (``jobs``), each holding one open document at a time
   (pypdfium2 is not thread-safe). A page that runs over ``page_timeout`` seconds gets an error
@@ -43,7 +43,7 @@ from dataclasses import dataclass, field
 from typing import Callable, Iterable, Sequence
 
 from .check import CheckSettings, check_page, error_record, handoff_fields
-from .sources import KNOWN_EXTENSIONS, PageError, ReadLimits, open_document, where
+from .sources import KNOWN_EXTENSIONS, PageError, ReadLimits, open_document, record_path, where
 from .template import Template
 from .verdict import SEVERITY, VERDICTS, Finding
 
@@ -57,14 +57,19 @@ def expand_inputs(items: Iterable[str], stdin=None) -> list[str]:
     ``-`` reads one path per line from ``stdin`` (blank lines skipped; each line is expanded in
     turn). A glob is expanded here, sorted, so shells that do not expand them work the same. A
     glob that matches nothing, and a path that does not exist, are kept: they become a "no such
-    file" error record rather than vanishing.
+    file" error record rather than vanishing. Paths come back absolute (see
+    :func:`~layoutcheck.sources.record_path`), as records and ``--resume`` name them.
     """
+    return [record_path(p) for p in _expand(items, stdin)]
+
+
+def _expand(items: Iterable[str], stdin=None) -> list[str]:
     out: list[str] = []
     for item in items:
         if item == "-":
             stream = stdin if stdin is not None else sys.stdin
             lines = [ln.strip() for ln in stream.read().splitlines()]
-            out.extend(expand_inputs([ln for ln in lines if ln and ln != "-"]))
+            out.extend(_expand([ln for ln in lines if ln and ln != "-"]))
             continue
         if os.path.isdir(item):
             out.extend(_folder_files(item))
@@ -192,7 +197,8 @@ def read_done(path: str) -> dict[tuple[str, int | None], dict]:
     for line in data[:end].splitlines():
         try:
             r = json.loads(line)
-            key = (r["source"], r["page"])
+            # Records before paths were written absolute name files from the run's folder.
+            key = (record_path(r["source"]), r["page"])
             done[key] = {"verdict": r["verdict"], "template": r.get("template"), "template_page": r.get("template_page")}
         except (ValueError, KeyError, TypeError):
             continue  # a damaged line in the middle: its page is checked again

@@ -8,6 +8,8 @@ cannot be opened at all).
 
 from __future__ import annotations
 
+import dataclasses
+import os
 import time
 from dataclasses import dataclass
 from typing import Iterator, Sequence
@@ -15,7 +17,7 @@ from typing import Iterator, Sequence
 import numpy as np
 
 from .consensus import Match, SolverSettings, solve
-from .elements import MM_PER_POINT, PageElements
+from .elements import MM_PER_POINT, Element, PageElements
 from .identify import IdentifySettings
 from .sources import PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page, where
 from .template import Template, TemplatePage, template_page, with_raster_sections
@@ -91,6 +93,25 @@ def reference_pages(path: str, limits: ReadLimits, pages: set[int] | None, with_
             yield page, None, extract(page)
 
 
+#: Files a folder of samples is read for (``learn --update form.json more_scans/``).
+SAMPLE_SUFFIXES = (".pdf", ".png", ".jpg", ".jpeg", ".tif", ".tiff")
+
+
+def sample_files(paths: Sequence[str]) -> list[str]:
+    """Files to learn from: the files given, and the scans and PDFs of folders given, by name."""
+    out = []
+    for p in paths:
+        p = str(p)
+        if os.path.isdir(p):
+            found = sorted(os.path.join(p, f) for f in os.listdir(p) if f.lower().endswith(SAMPLE_SUFFIXES))
+            if not found:
+                raise LearnError(f"{p}: folder holds no scans or PDFs")
+            out += found
+        else:
+            out.append(p)
+    return out
+
+
 def learn(references: Sequence[str], name: str | None = None, pages: set[int] | None = None,
           limits: ReadLimits = ReadLimits(), section_names: dict[str, str] | None = None,
           with_raster: bool = True) -> Template:
@@ -112,15 +133,68 @@ def learn(references: Sequence[str], name: str | None = None, pages: set[int] | 
     ref = refs[0]
     out_pages: list[TemplatePage] = []
     for page, vec, ras in reference_pages(ref, limits, pages, with_raster):
+        scanned = vec is None and isinstance(page, RasterPage)
+        if scanned:
+            ras, aside, why = printed_sort(page, ras)
         tp = template_page(len(out_pages) + 1, vec, ras, section_names)
         if len(tp.elements) < 3:
             raise LearnError(f"{where(ref, page.page)}: only {len(tp.elements)} form elements found; "
                              "a template needs ruled lines, boxes or labels (blank or photographic page?)")
+        if scanned:
+            tp = dataclasses.replace(tp, set_aside=aside, set_aside_why=why, samples=1,
+                                     seen={e.id: 1 for e in tp.raster_elements + aside})
         out_pages.append(with_raster_sections(tp))
     if not out_pages:
         raise LearnError(f"{where(ref, None)}: no pages selected")
     stem = name or _default_name(ref)
-    return with_zones(Template(stem, tuple(out_pages), (ref.split("/")[-1],)))
+    warnings = ()
+    if any(p.samples == 1 for p in out_pages):
+        from .samples import single_sample_warning
+
+        warnings = (single_sample_warning(sum(len(p.set_aside) for p in out_pages)),)
+    return with_zones(Template(stem, tuple(out_pages), (ref.split("/")[-1],), warnings))
+
+
+def printed_sort(page: RasterPage, found: PageElements) -> tuple[PageElements, tuple[Element, ...], dict]:
+    """A scanned sample split into what is printed and what is probably fill-in.
+
+    Returns the printed elements (rules cut to their printed span and to the structure that ends
+    them), the elements set aside, and per element id the reason it was set aside or cut (see
+    :mod:`layoutcheck.extract.raster.printed`). The colour of a colour image file is a cue too.
+    """
+    from .extract.raster.printed import sort_printed, trim_to_structure
+    from .sources import read_colour
+
+    colour = None if str(page.source).lower().endswith(".pdf") else read_colour(page.source, page.page)
+    if colour is not None and colour.shape[:2] != page.image.shape:
+        colour = None
+    sorting = sort_printed(page.image, page.dpi, found.elements, colour)
+    shaped = trim_to_structure(sorting.kept)
+    why = {**sorting.reasons, **shaped.reasons}
+    return (PageElements(found.width, found.height, shaped.kept, source=found.source, note=found.note),
+            sorting.set_aside + shaped.set_aside, why)
+
+
+def learning_summary(template: Template) -> list[str]:
+    """Plain lines saying what a template was learned from and how sure it is, per page."""
+    lines = []
+    for p in template.pages:
+        line = (f"{template.name} page {p.number}: {len(p.elements)} elements in {len(p.sections)} sections"
+                + (f", {len(p.raster_elements)} as seen in a scan" if p.raster_elements else ""))
+        if p.unstable:
+            line += f", {len(p.unstable)} unstable"
+        if p.samples:
+            line += (f"; from {p.samples} scanned sample{'s' if p.samples > 1 else ''}: {len(p.elements)} kept, "
+                     f"{len(p.set_aside)} set aside as probable fill-in")
+        lines.append(line)
+        if p.unstable:
+            # Found on some good samples only: not judged on input pages, so a person should know.
+            by_id = {e.id: e for e in p.elements}
+            names = [by_id[i].label() for i in p.unstable if i in by_id]
+            shown = ", ".join(names[:10]) + (f" and {len(names) - 10} more" if len(names) > 10 else "")
+            lines.append(f"  not on every sample (not judged): {shown}")
+    lines += [f"warning: {w}" for w in template.warnings]
+    return lines
 
 
 def _default_name(path: str) -> str:

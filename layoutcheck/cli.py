@@ -95,8 +95,10 @@ def main() -> None:
 
 
 @main.command()
-@click.argument("references", nargs=-1, required=True, type=click.Path(dir_okay=False))
-@click.option("-o", "--output", "output", required=True, type=click.Path(dir_okay=False), help="Template file to write (JSON).")
+@click.argument("references", nargs=-1, required=True, type=click.Path())
+@click.option("-o", "--output", "output", type=click.Path(dir_okay=False), help="Template file to write (JSON); with --update, default: the template updated.")
+@click.option("--update", "update", type=click.Path(exists=True, dir_okay=False),
+              help="Add the REFERENCES (scans, or folders of them) as more samples to this template.")
 @click.option("--name", help="Template name (default: from the reference's file name).")
 @click.option("--pages", "pages_spec", help="Pages of the reference to learn, e.g. 1,3-4 (default: all).")
 @click.option("--dpi", type=float, help="Resolution of reference scans that do not state one.")
@@ -105,9 +107,12 @@ def main() -> None:
 @click.option("--password", help="Password of an encrypted reference PDF.")
 @click.option("--form", "form", help="The form this template is a revision of, e.g. KBH-101 (with --revision).")
 @click.option("--revision", help="Which revision of the form this template is, e.g. 3.")
-def learn(references, output, name, pages_spec, dpi, section_names, zones_file, password, form, revision):
+def learn(references, output, update, name, pages_spec, dpi, section_names, zones_file, password, form, revision):
     """Learn a template from a reference (a blank PDF or a clean scan), or from several good samples."""
-    from .check import LearnError, learn as learn_template, parse_pages
+    from .check import LearnError, learn as learn_template, learning_summary, parse_pages, sample_files
+
+    if output is None and update is None:
+        raise click.UsageError("give the template file to write with -o/--output")
 
     try:
         pages = parse_pages(pages_spec)
@@ -121,7 +126,17 @@ def learn(references, output, name, pages_spec, dpi, section_names, zones_file, 
         names[k.strip()] = v.strip()
     limits = ReadLimits(dpi=dpi, password=password)
     try:
-        template = learn_template(list(references), name=name, pages=pages, limits=limits, section_names=names)
+        files = sample_files(references)
+        if update:
+            from .samples import update_template
+
+            try:
+                template = update_template(load_template(update), files, limits)
+            except TemplateError as exc:
+                raise TemplateProblem(str(exc)) from None
+            output = output or update
+        else:
+            template = learn_template(files, name=name, pages=pages, limits=limits, section_names=names)
         if zones_file:
             from .zones import apply_zone_file
 
@@ -131,18 +146,10 @@ def learn(references, output, name, pages_spec, dpi, section_names, zones_file, 
     if form or revision:
         import dataclasses
 
-        template = dataclasses.replace(template, form=form or template.name, revision=revision)
+        template = dataclasses.replace(template, form=form or template.form or template.name, revision=revision or template.revision)
     save_template(template, output)
-    for p in template.pages:
-        click.echo(f"{template.name} page {p.number}: {len(p.elements)} elements in {len(p.sections)} sections"
-                   + (f", {len(p.raster_elements)} as seen in a scan" if p.raster_elements else "")
-                   + (f", {len(p.unstable)} unstable" if p.unstable else ""))
-        if p.unstable:
-            # Found on some good samples only: not judged on input pages, so a person should know.
-            by_id = {e.id: e for e in p.elements}
-            names = [by_id[i].label() for i in p.unstable if i in by_id]
-            shown = ", ".join(names[:10]) + (f" and {len(names) - 10} more" if len(names) > 10 else "")
-            click.echo(f"  not on every sample (not judged): {shown}")
+    for line in learning_summary(template):
+        click.echo(line)
     click.echo(f"wrote {output}")
 
 
@@ -286,10 +293,11 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     records = result.records
     if report_out:
         _write_report(report_out, records, templates.by_name({r["template"] for r in records if r.get("template")}), tol)
-    out = click.get_text_stream("stderr") if json_out == "-" else click.get_text_stream("stdout")
+    # With records on standard output, the people's summary goes to standard error.
+    to_err = json_out == "-"
     if not quiet and records:
-        click.echo("\n".join(summary_table(records).split("\n")[:-1]), file=out)
-    click.echo(result.summary(), file=out)
+        click.echo("\n".join(summary_table(records).split("\n")[:-1]), err=to_err)
+    click.echo(result.summary(), err=to_err)
     sys.exit(EXIT_PASS if result.all_pass else EXIT_FLAGGED)
 
 

@@ -50,9 +50,7 @@ def run_demo(out_dir: Path, echo: Callable[[str], None] = print) -> int:
     settings = CheckSettings(zones=True)
     normalised = CheckSettings(zones=True, normalise_dir=str(out_dir / "normalised"))
     for rel in inputs:
-        for rec in check_file(str(samples / rel), templates, normalised if rel == NORMALISE_DEMO else settings):
-            rec["source"] = rel
-            records.append(rec)
+        records.extend(check_file(str(samples / rel), templates, normalised if rel == NORMALISE_DEMO else settings))
     jsonl = out_dir / "results.jsonl"
     with open(jsonl, "w", encoding="utf-8") as fh:
         for r in records:
@@ -60,7 +58,7 @@ def run_demo(out_dir: Path, echo: Callable[[str], None] = print) -> int:
     echo("")
     echo(summary_table(records))
     truth = {(e["input"], e["page"]): e["verdict"] for e in expected}
-    got = {(r["source"], r["page"]): r["verdict"] for r in records}
+    got = {(Path(r["source"]).relative_to(samples).as_posix(), r["page"]): r["verdict"] for r in records}
     wrong = [(k, v, got.get(k)) for k, v in truth.items() if got.get(k) != v]
     echo("")
     echo(f"records: {jsonl}")
@@ -68,7 +66,7 @@ def run_demo(out_dir: Path, echo: Callable[[str], None] = print) -> int:
     from .verdict import Tolerances
 
     report = out_dir / "report.html"
-    write_report(report, records, templates, Tolerances(), base_dir=samples)
+    write_report(report, records, templates, Tolerances())
     echo(f"report:  {report}")
     echo(f"verdicts as planted: {len(truth) - len(wrong)} of {len(truth)}")
     for (src, page), want, have in wrong:

@@ -154,9 +154,9 @@ def write_image(norm: Normalised, path: str | os.PathLike, fmt: str = "png") -> 
 
 
 def output_path(out_dir: str | os.PathLike, source: str, page: int, fmt: str = "png") -> Path:
-    """``<dir>/<input stem>_p<page>.<png|tiff>``."""
+    """``<dir>/<input stem>_p<page>.<png|tiff>``, absolute (records name files absolutely)."""
     stem = Path(source).stem or "page"
-    return Path(out_dir) / f"{stem}_p{page}.{fmt.lower()}"
+    return Path(os.path.abspath(out_dir)) / f"{stem}_p{page}.{fmt.lower()}"
 
 
 def normalise_page(page, pose: Pose, template_size_pt: tuple[float, float], out_dir: str | os.PathLike,

@@ -46,6 +46,7 @@ class ScanSettings:
     paper_size_pt: tuple[float, float] | None = None
     seed: int = 0
     oversample: int | None = None
+    hand: bool = False
 
 
 @dataclass(frozen=True)
@@ -128,6 +129,7 @@ def simulate_scan(
     paper_size_pt: tuple[float, float] | None = None,
     seed: int = 0,
     oversample: int | None = None,
+    hand: bool = False,
 ) -> SimulatedScan:
     """Scan a PDF page in simulation.
 
@@ -160,6 +162,11 @@ def simulate_scan(
         Rendering resolution over the scan resolution, for anti-aliased sampling. Default: enough
         for at least 600 dpi, where pdfium's snapping of rectangle edges to its pixel grid moves
         an edge by under 0.04 point (measured: up to 0.11 point at 400 dpi).
+    hand : bool
+        Harsher fill-in, by hand, on top of ``fill`` (see :func:`_draw_hand`): writing on the
+        free rules of the form that runs past their ends, signatures across signature rules with
+        a flourish along them, and long, nearly straight strokes (crossings-out, underlines) in
+        boxes.
 
     Returns
     -------
@@ -171,7 +178,7 @@ def simulate_scan(
                       float(blur_sigma_px), float(noise_sigma), float(salt_pepper), jpeg_quality, bitonal_threshold,
                       bool(fill), bool(stamp), bool(edge_shadow), bool(punch_holes),
                       None if paper_size_pt is None else tuple(map(float, paper_size_pt)), int(seed),
-                      None if oversample is None else int(oversample))
+                      None if oversample is None else int(oversample), bool(hand))
     rng = np.random.default_rng(seed)
     os_ = max(2, int(math.ceil(600.0 / dpi))) if oversample is None else max(1, int(oversample))
     rdpi = dpi * os_
@@ -183,6 +190,8 @@ def simulate_scan(
     pose = truth_pose(page_pt, paper, rotation_deg, scale, shift_mm)
     if fill:
         rendered = _draw_fill(rendered, source_pdf, page, rdpi, rng)
+    if hand:
+        rendered = _draw_hand(rendered, source_pdf, page, rdpi, np.random.default_rng([seed, 1]))
     # Continuous map: render px -> template points -> scan points -> oversampled scan px.
     render_to_pt = np.diag([POINTS_PER_INCH / rdpi, POINTS_PER_INCH / rdpi, 1.0])
     pt_to_out = np.diag([rdpi / POINTS_PER_INCH, rdpi / POINTS_PER_INCH, 1.0])
@@ -271,6 +280,100 @@ def _draw_fill(img: np.ndarray, source_pdf, page: int, rdpi: float, rng: np.rand
         for p in pts:
             q = np.round(p * k * (1 << sh)).astype(np.int32)
             cv2.polylines(out, [q], False, ink, thick, lineType=cv2.LINE_AA, shift=sh)
+    return out
+
+
+def _page_rules(source_pdf, page: int) -> tuple[list[tuple[float, float, float, float]], list, tuple[float, float]]:
+    """Free horizontal rules, boxes and labels of the PDF page (points) and the page size."""
+    from .extract.vector import extract_vector
+    from .sources import VectorPage, read_pages
+
+    for pg in read_pages(source_pdf, pages={page}):
+        if isinstance(pg, VectorPage):
+            found = extract_vector(pg)
+            rules = [e.frame for e in found.elements if e.kind == "hline"]
+            others = [e for e in found.elements if e.kind in ("box", "label")]
+            return rules, others, (found.width, found.height)
+    return [], [], (0.0, 0.0)
+
+
+def _hand_line(x0: float, x1: float, base: float, height: float, rng: np.random.Generator) -> np.ndarray:
+    """A line of cursive-like writing from ``x0`` to ``x1`` on the baseline ``base`` (points):
+    loops up to ``height`` above it, some descenders a third of that below."""
+    n = int(max(12, (x1 - x0) * 1.5))
+    t = np.linspace(0.0, 1.0, n)
+    xs = x0 + (x1 - x0) * t + 1.2 * np.sin(t * (x1 - x0) * rng.uniform(0.6, 1.0))
+    up = 0.5 + 0.5 * np.sin(t * (x1 - x0) * rng.uniform(0.35, 0.6) + rng.uniform(0, 6))
+    down = np.where(rng.random(n) < 0.12, rng.uniform(0.2, 0.35) * height, 0.0)
+    ys = base - 0.4 - up * height + down + rng.normal(0.0, 0.12, n)
+    return np.stack([xs, ys], 1)
+
+
+def _near_straight(x0: float, x1: float, y: float, rng: np.random.Generator) -> np.ndarray:
+    """A stroke drawn by hand along a straight line: a slight bow, a slant and a tremor."""
+    n = int(max(10, (x1 - x0) / 1.5))
+    t = np.linspace(0.0, 1.0, n)
+    bow = rng.uniform(0.3, 1.0) * rng.choice([-1, 1]) * np.sin(np.pi * t)
+    slant = np.tan(np.radians(rng.uniform(-1.5, 1.5))) * (x1 - x0) * (t - 0.5)
+    tremor = np.cumsum(rng.normal(0.0, 0.12, n))
+    tremor -= np.linspace(tremor[0], tremor[-1], n)
+    return np.stack([x0 + (x1 - x0) * t, y + bow + slant + tremor], 1)
+
+
+def _draw_hand(img: np.ndarray, source_pdf, page: int, rdpi: float, rng: np.random.Generator) -> np.ndarray:
+    """Fill-in harsher than most offices see: ink that touches, crosses and continues rules.
+
+    - Writing on most free rules (those shorter than 80 % of the page width), its descenders
+      crossing the rule; on some, a tail stroke that touches the rule's end and runs on along
+      its line for 3 to 12 mm, and on some the writing begins before the rule does.
+    - On a rule captioned "Signature" (or "Issued by"), a signature: large loops across the rule,
+      running past an end, and a flourish drawn along the rule.
+    - In some boxes wider than 30 mm, a long, nearly straight stroke (a crossing-out or an
+      underline) of 12 to 40 mm.
+    """
+    out = img.copy()
+    k = rdpi / POINTS_PER_INCH
+    sh = 4
+    mm_ = POINTS_PER_INCH / MM_PER_INCH
+    thick = max(1, int(round(_px(0.45, rdpi))))
+    rules, others, (pw, _) = _page_rules(source_pdf, page)
+    labels = [e for e in others if e.kind == "label" and e.text]
+    strokes: list[np.ndarray] = []
+    for x0, top, x1, bottom in rules:
+        if x1 - x0 >= 0.8 * pw:
+            continue
+        y = (top + bottom) / 2.0
+        below = [e.text.lower() for e in labels if abs(e.frame[0] - x0) < 4 * mm_ and 0 < e.frame[1] - y < 6 * mm_]
+        if any(t.startswith(("signature", "issued")) for t in below):
+            a = x0 + rng.uniform(0.05, 0.3) * (x1 - x0)
+            b = min(x1 + rng.uniform(3, 15) * mm_, pw - 10 * mm_)
+            strokes.append(_hand_line(a, b, y + rng.uniform(0.0, 1.5) * mm_, rng.uniform(6, 10) * mm_, rng))
+            f0 = x0 + rng.uniform(0.0, 0.2) * (x1 - x0)
+            strokes.append(_near_straight(f0, min(f0 + rng.uniform(25, 50) * mm_, pw - 10 * mm_),
+                                          y + rng.uniform(-0.6, 0.6) * mm_, rng))
+            continue
+        if rng.random() < 0.15:
+            continue
+        a = x0 + rng.uniform(1, 4) * mm_ - (rng.uniform(3, 8) * mm_ if rng.random() < 0.25 else 0.0)
+        b = a + rng.uniform(0.35, 0.9) * (x1 - a)
+        strokes.append(_hand_line(a, b, y, rng.uniform(2.5, 4.0) * mm_, rng))
+        if rng.random() < 0.5:
+            # A tail that touches the rule's end and runs on along it: the inked run grows by it.
+            t0 = x1 - rng.uniform(0.0, 0.5) * mm_
+            tail = _near_straight(t0, x1 + rng.uniform(3, 12) * mm_, y + rng.uniform(-0.15, 0.15) * mm_, rng)
+            tail[:, 1] = y + 0.3 * (tail[:, 1] - y)
+            strokes.append(tail)
+    for e in others:
+        bx0, btop, bx1, bbottom = e.frame
+        if e.kind != "box" or bx1 - bx0 < 30 * mm_ or bbottom - btop > 40 * mm_ or rng.random() < 0.6:
+            continue
+        a = bx0 + rng.uniform(2, 8) * mm_
+        b = min(bx1 - 2 * mm_, a + rng.uniform(12, 40) * mm_)
+        strokes.append(_near_straight(a, b, btop + rng.uniform(0.4, 0.7) * (bbottom - btop), rng))
+    for p in strokes:
+        ink = float(rng.uniform(20, 90))
+        q = np.round(p * k * (1 << sh)).astype(np.int32)
+        cv2.polylines(out, [q], False, ink, thick, lineType=cv2.LINE_AA, shift=sh)
     return out
 
 

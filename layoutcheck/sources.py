@@ -162,8 +162,12 @@ class Document:
 
 
 def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pages: set[int] | None = None) -> Document:
-    """Open one input file (PDF, PNG, JPEG, TIFF) and plan what it yields; never raises."""
-    source = str(path)
+    """Open one input file (PDF, PNG, JPEG, TIFF) and plan what it yields; never raises.
+
+    The document's ``source`` (and so every record's) is the absolute path of the file, so that
+    any reader of a record finds the file again whatever its own working folder.
+    """
+    source = record_path(path)
     p = Path(source)
     try:
         if not p.exists():
@@ -180,6 +184,11 @@ def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pa
         return _ImageDocument.open(source, limits, pages)
     except Exception as exc:  # last line of defence: a reader bug must not end the batch
         return _failed(source, f"could not be read ({type(exc).__name__}: {_one_line(exc)})")
+
+
+def record_path(path: str | os.PathLike) -> str:
+    """The form in which a file's path is written into records: absolute, links not resolved."""
+    return os.path.abspath(os.fspath(path))
 
 
 def _failed(source: str, what: str) -> Document:
@@ -549,3 +558,27 @@ def render_page_image(source: str, page: int, dpi: float, limits: ReadLimits = R
     if isinstance(out, PageError):
         raise InputError(out.message)
     return out.image
+
+
+def read_colour(path: str | os.PathLike, page: int) -> np.ndarray | None:
+    """The RGB pixels of a page of a colour image file (PNG, JPEG, TIFF), or None.
+
+    None for a grey or bitonal page, a PDF, or a file that cannot be read: colour is a cue for
+    telling fill-in from print when learning, never needed. Pixels match :func:`read_pages`'
+    grey image (EXIF orientation applied, transparency on white).
+    """
+    from PIL import Image, ImageOps
+
+    try:
+        with Image.open(path) as im:
+            im.seek(page - 1)
+            if im.mode not in ("RGB", "RGBA", "P", "PA", "CMYK", "YCbCr"):
+                return None
+            frame = ImageOps.exif_transpose(im) if _exif_orientation(im) not in (None, 1) else im
+            if frame.mode in ("RGBA", "P", "PA"):
+                rgba = frame.convert("RGBA")
+                frame = Image.new("RGBA", rgba.size, (255, 255, 255, 255))
+                frame.alpha_composite(rgba)
+            return np.asarray(frame.convert("RGB"), dtype=np.uint8)
+    except Exception:
+        return None

@@ -12,6 +12,7 @@ No solving happens here.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
 from dataclasses import dataclass, field
@@ -94,6 +95,16 @@ class TemplatePage:
     unstable: tuple[str, ...] = ()
     #: Named zones for OCR (see :mod:`layoutcheck.zones`); empty in templates written before them.
     zones: tuple[Zone, ...] = ()
+    #: Elements of a scanned sample set aside as probable fill-in (handwriting, a stamp): kept
+    #: so a person can see them and promote one (:func:`promote`), never matched or judged.
+    set_aside: tuple[Element, ...] = ()
+    #: Element id -> why it was set aside (or cut to its printed span), in plain words.
+    set_aside_why: dict = field(default_factory=dict)
+    #: How many scanned samples the page was learned from (0: a blank PDF or unknown).
+    samples: int = 0
+    #: Element id -> on how many of those samples it was found (kept and set-aside elements),
+    #: so that more samples can be added with the same majority rule (``learn --update``).
+    seen: dict = field(default_factory=dict)
 
     def elements_for(self, source: str) -> tuple[Element, ...]:
         """The element set to compare an input of this source ("vector" or "raster") with."""
@@ -116,7 +127,20 @@ class TemplatePage:
             "slack": {k: round(float(v), 3) for k, v in self.slack.items()},
             "unstable": list(self.unstable),
             "zones": [z.to_dict() for z in self.zones],
+            **self._sample_fields(),
         }
+
+    def _sample_fields(self) -> dict:
+        """The fields of a page learned from scanned samples (absent for a blank reference)."""
+        out: dict = {}
+        if self.samples:
+            out["samples"] = self.samples
+            out["seen"] = {k: int(v) for k, v in self.seen.items()}
+        if self.set_aside:
+            out["set_aside"] = [e.to_dict() for e in self.set_aside]
+        if self.set_aside_why:
+            out["set_aside_why"] = dict(self.set_aside_why)
+        return out
 
     @classmethod
     def from_dict(cls, d: dict) -> "TemplatePage":
@@ -130,6 +154,10 @@ class TemplatePage:
             slack={str(k): float(v) for k, v in d.get("slack", {}).items()},
             unstable=tuple(d.get("unstable", [])),
             zones=tuple(Zone.from_dict(z) for z in d.get("zones", [])),
+            set_aside=tuple(Element.from_dict(e) for e in d.get("set_aside", [])),
+            set_aside_why={str(k): str(v) for k, v in d.get("set_aside_why", {}).items()},
+            samples=int(d.get("samples", 0)),
+            seen={str(k): int(v) for k, v in d.get("seen", {}).items()},
         )
 
 
@@ -146,6 +174,8 @@ class Template:
     name: str
     pages: tuple[TemplatePage, ...]
     references: tuple[str, ...] = ()
+    #: Plain warnings about how sure the template is (say, learned from one filled scan).
+    warnings: tuple[str, ...] = ()
     form: str | None = None
     revision: str | None = None
 
@@ -171,6 +201,8 @@ class Template:
         if self.form or self.revision:
             out.update(form=self.form, revision=self.revision)
         out.update(references=list(self.references), pages=[p.to_dict() for p in self.pages])
+        if self.warnings:
+            out["warnings"] = list(self.warnings)
         return out
 
 
@@ -342,8 +374,7 @@ def with_raster_sections(page: TemplatePage) -> TemplatePage:
         best = min(page.sections, key=lambda s: _frame_distance(s.frame, cx, cy))
         extra[best.id].append(e.id)
     sections = tuple(Section(s.id, s.name, s.frame, s.element_ids + tuple(extra[s.id])) for s in page.sections)
-    return TemplatePage(page.number, page.width, page.height, page.elements, sections, page.raster_elements,
-                        page.slack, page.unstable, page.zones)
+    return dataclasses.replace(page, sections=sections)
 
 
 def _frame_distance(f: Sequence[float], x: float, y: float) -> float:
@@ -377,6 +408,7 @@ def template_from_dict(data: object, where: str = "template") -> Template:
         pages = tuple(TemplatePage.from_dict(p) for p in data["pages"])
         name = str(data["name"])
         references = tuple(str(r) for r in data.get("references") or [])
+        warnings = tuple(str(w) for w in data.get("warnings") or [])
         form = _optional_text(data.get("form"), "form")
         revision = _optional_text(data.get("revision"), "revision")
     except (KeyError, TypeError, ValueError, IndexError, AttributeError) as exc:
@@ -389,13 +421,13 @@ def template_from_dict(data: object, where: str = "template") -> Template:
         ids = [e.id for e in p.elements]
         if len(set(ids)) != len(ids):
             raise TemplateError(f"{where}: template page {p.number} repeats element ids")
-        for e in p.elements + p.raster_elements:
+        for e in p.elements + p.raster_elements + p.set_aside:
             if not all(np.isfinite(v) for v in e.frame):
                 raise TemplateError(f"{where}: template page {p.number} element {e.id} has an invalid frame")
         for z in p.zones:
             if not all(np.isfinite(v) for v in z.frame):
                 raise TemplateError(f"{where}: template page {p.number} zone {z.name!r} has an invalid frame")
-    return Template(name, pages, references, form, revision)
+    return Template(name, pages, references, warnings, form, revision)
 
 
 def _optional_text(value: object, what: str) -> str | None:

@@ -18,6 +18,7 @@ where the form has something else.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import os
 import re
@@ -119,7 +120,7 @@ def page_zones(page: TemplatePage) -> tuple[Zone, ...]:
 def with_zones(template: Template) -> Template:
     """The template with learned zones on every page that has none yet."""
     pages = tuple(p if p.zones else _replace_zones(p, page_zones(p)) for p in template.pages)
-    return Template(template.name, pages, template.references)
+    return dataclasses.replace(template, pages=pages)
 
 
 def zones_of(page: TemplatePage) -> tuple[Zone, ...]:
@@ -128,8 +129,6 @@ def zones_of(page: TemplatePage) -> tuple[Zone, ...]:
 
 
 def _replace_zones(page: TemplatePage, zones: Sequence[Zone]) -> TemplatePage:
-    import dataclasses
-
     return dataclasses.replace(page, zones=tuple(zones))
 
 
@@ -212,7 +211,7 @@ def apply_zone_file(template: Template, path: str | os.PathLike) -> Template:
         names = {z.name for z in new}
         kept = [z for z in p.zones if z.name not in names]
         pages.append(_replace_zones(p, kept + new))
-    return Template(base.name, tuple(pages), base.references)
+    return dataclasses.replace(base, pages=tuple(pages))
 
 
 # -- zones on an input page -----------------------------------------------------------------------

@@ -106,3 +106,22 @@ def test_learn_from_samples_names_the_unstable_elements(tmp_path):
     assert res.exit_code == 0, res.output
     line = next(x for x in res.output.splitlines() if x.startswith("  not on every sample"))
     assert "box 'Agent' (box-" in line
+
+
+def test_demo_with_relative_out_from_another_folder(tmp_path, monkeypatch):
+    """The README's first command, as a new user runs it: from any folder, default relative
+    output folder. Every verdict as planted, a report written, record paths absolute."""
+    import os
+    import re
+
+    monkeypatch.chdir(tmp_path)
+    res = CliRunner().invoke(main, ["demo", "--out", "sub/out"])
+    assert res.exit_code == 0, res.output
+    got, total = map(int, re.search(r"verdicts as planted: (\d+) of (\d+)", res.output).groups())
+    assert got == total >= 21
+    out = tmp_path / "sub" / "out"
+    assert (out / "report.html").stat().st_size > 100_000  # pictures embedded
+    recs = [json.loads(line) for line in (out / "results.jsonl").read_text().splitlines()]
+    assert all(os.path.isabs(r["source"]) and os.path.exists(r["source"]) for r in recs)
+    norm = [r["normalised"]["path"] for r in recs if r.get("normalised")]
+    assert norm and all(os.path.isabs(p) and os.path.exists(p) for p in norm)

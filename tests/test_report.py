@@ -426,3 +426,35 @@ def test_elements_found_on_a_second_look_are_named(tmp_path, records, templates)
     raw = out.read_text(encoding="utf-8")
     assert "Found only on a second look at their expected place" in raw
     assert "checkbox-003, &lt;b&gt;x&lt;/b&gt;." in raw
+
+
+def test_missing_normalised_image_is_said_in_words(tmp_path, templates, monkeypatch):
+    """The normalised image is gone by the time the report is written (moved on to OCR, say):
+    the hand-off section says so and the report is still written. Relative output folder, as
+    the demo's default ``demo-out`` is."""
+    from layoutcheck.check import CheckSettings
+
+    monkeypatch.chdir(tmp_path)
+    settings = CheckSettings(zones=True, normalise_dir="norm")
+    recs = list(check_file(str(SAMPLES / "inputs" / "101_rotated.pdf"), templates, settings))
+    written = Path(recs[0]["normalised"]["path"])
+    assert written.is_absolute() and written.parent == tmp_path / "norm"
+    written.unlink()
+    out = write_report(tmp_path / "r.html", recs, templates, Tolerances())
+    doc = parse(out)
+    section = next(n for n in doc.find_all("section") if "handoff" in n.classes())
+    assert not section.find_all("img")
+    note = section.find("p").text()
+    assert note.startswith(f"The normalised page {written} could not be shown")
+    assert "No such file" in note
+
+
+def test_failed_normalisation_is_said_in_words(tmp_path, templates):
+    from layoutcheck.check import CheckSettings
+
+    recs = list(check_file(str(SAMPLES / "inputs" / "101_rotated.pdf"), templates, CheckSettings()))
+    recs[0]["normalised"] = {"path": None, "dpi": 200.0, "error": "101_rotated.pdf page 1: normalised image not written (disk full)"}
+    doc = parse(write_report(tmp_path / "r.html", recs, templates, Tolerances()))
+    section = next(n for n in doc.find_all("section") if "handoff" in n.classes())
+    assert section.find("p").text() == ("No normalised page was written: 101_rotated.pdf page 1: normalised image "
+                                         "not written (disk full)")

@@ -368,14 +368,17 @@ def handoff_view(rec: dict, base_dir) -> dict | None:
     norm = rec.get("normalised") or {}
     path = norm.get("path")
     if not path:
+        if norm.get("error"):
+            return {"image": None, "note": clean(f"No normalised page was written: {norm['error']}")}
         return None
     from PIL import Image
 
     try:
         with Image.open(resolve(str(path), base_dir)) as im:
             image = np.asarray(im.convert("L"))
-    except OSError as exc:
-        return {"note": clean(f"The normalised page could not be shown: {exc}")}
+    except Exception as exc:  # a report must not fail on one missing or damaged picture
+        return {"image": None, "note": clean(f"The normalised page {path} could not be shown "
+                                             f"({type(exc).__name__}: {' '.join(str(exc).split())}).")}
     dpi = float(norm.get("dpi") or PAGE_DPI)
     small = resample(image, PAGE_DPI / dpi) if dpi > PAGE_DPI * 1.05 else image
     zones = []

@@ -177,3 +177,22 @@ def test_worker_processes_read_templates_through_the_index(folder, specs, tmp_pa
     result = run_batch(pdfs, index, options=BatchOptions(jobs=2, keep_records=True))
     assert [(r["template"], r["verdict"]) for r in result.records] == [("KBH-102", "pass"), ("KBH-100", "pass"), ("KBH-103", "pass")]
     assert len(index._loaded) == 0  # the pages were checked in the workers, which read the templates themselves
+
+
+def test_verify_expect_revision_end_to_end(tmp_path):
+    """Two revisions in a folder, a page of revision 2 checked as if revision 1 were expected."""
+    d = tmp_path / "revs"
+    d.mkdir()
+    specs = lookalike.family(2, n_revised=1)  # KBH-100 revision 1, and revision 2 with a box moved 8 mm
+    for s in specs:
+        save_template(lookalike.template_of(s), d / f"{s.name}.json")
+    pdf = lookalike.draw_pdf(specs[1], tmp_path / "r2.pdf")
+    out = tmp_path / "out.jsonl"
+    res = CliRunner().invoke(main, ["verify", str(d), pdf, "--expect-revision", "KBH-100=1", "--json", str(out), "-q"])
+    assert res.exit_code == 1, res.output
+    (rec,) = [json.loads(ln) for ln in out.read_text().splitlines()]
+    assert (rec["template"], rec["form"], rec["revision"], rec["expected_revision"]) == ("KBH-100-r2", "KBH-100", "2", "1")
+    assert rec["verdict"] == "mismatched"
+    assert rec["findings"][0]["message"].startswith("Page is KBH-100 revision 2, not revision 1 as expected: box ")
+    res = CliRunner().invoke(main, ["verify", str(d), pdf, "--expect-revision", "2", "--json", str(out), "-q"])
+    assert res.exit_code == 0, res.output

@@ -88,8 +88,8 @@ def test_index_is_refreshed_when_a_template_changes(folder, specs, loads, tmp_pa
     assert loads == []
 
 
-def test_same_size_and_time_but_new_content_is_caught_by_the_hash_on_refresh(folder, specs, loads):
-    """The hash is what decides once the modification time or size says 'maybe'."""
+def test_edited_template_is_read_again_on_refresh(folder, specs, loads):
+    """An edit in place (a mark moved by 1 pt): new time, new hash, read again."""
     index = TemplateIndex.open([folder])
     target = folder / "KBH-101.json"
     data = json.loads(target.read_text())

@@ -27,8 +27,9 @@ from typing import Any, Callable, Sequence, Union
 import numpy as np
 
 from .batch import BatchOptions, BatchResult, expand_inputs, run_batch
-from .check import (CheckSettings, check_page as _check_page, handoff_fields, learn as _learn, learning_summary,
-                    parse_pages, sample_files, update as _update)
+from .check import (CheckSettings, alike_templates, check_page as _check_page, handoff_fields, learn as _learn,
+                    learning_summary, parse_pages, sample_files, update as _update)
+from .index import TemplateIndex, as_index
 from .report import write_report
 from .sources import ReadLimits, RasterPage, image_page, open_document, record_path, snap_dpi
 from .summary import counts_line, summary_table
@@ -40,7 +41,7 @@ __all__ = [
     "BatchOptions", "BatchResult", "CheckError", "CheckSettings", "Finding", "LearnError", "Offending",
     "PagePose", "PageResult", "ReadLimits", "SEVERITY", "SectionResult", "Template", "TemplateError", "Tolerances",
     "VERDICTS", "ZoneError", "ZoneResult", "check_file", "check_page", "counts_line", "expand_inputs",
-    "SCHEMA_VERSION", "check_files", "learn", "learning_summary", "load_templates", "parse_pages", "promote",
+    "SCHEMA_VERSION", "TemplateIndex", "alike_templates", "as_index", "check_files", "learn", "learning_summary", "load_templates", "open_template_index", "parse_pages", "promote",
     "run_batch", "save_template", "schema", "show_template", "summary_table", "update_template", "write_report",
 ]
 
@@ -266,19 +267,33 @@ def load_templates(path: str | os.PathLike, *more: str | os.PathLike) -> tuple[T
     return tuple(out)
 
 
+def open_template_index(paths: Sequence[str | os.PathLike]) -> TemplateIndex:
+    """Templates of files and folders as one index: signatures in arrays, elements read when a
+    page needs them, stored beside the templates and refreshed when a file changes (see
+    :mod:`layoutcheck.index`). A damaged file in a folder is left out and named in
+    ``index.problems``; a damaged file named on its own raises :class:`TemplateError`."""
+    return TemplateIndex.open([str(p) for p in paths])
+
+
 def learn(references: str | os.PathLike | Sequence[str | os.PathLike], *, name: str | None = None,
           pages: str | set[int] | None = None, dpi: float | None = None, password: str | None = None,
-          section_names: dict[str, str] | None = None, zones: str | os.PathLike | None = None) -> Template:
+          section_names: dict[str, str] | None = None, zones: str | os.PathLike | None = None,
+          form: str | None = None, revision: str | None = None) -> Template:
     """Learn a template from a reference (a blank PDF or a clean scan) or several good samples.
 
     ``pages`` is ``"1,3-4"`` or a set of 1-based page numbers (default: all); ``dpi`` is assumed
     for reference scans that state none; ``section_names`` maps found section ids to names;
-    ``zones`` is a zones JSON file. Raises :class:`LearnError` naming the file and page.
+    ``zones`` is a zones JSON file; ``form`` and ``revision`` declare the template a revision of
+    a form (``form`` defaults to the template's name). Raises :class:`LearnError` naming the
+    file and page.
     """
     refs = [references] if isinstance(references, (str, os.PathLike)) else list(references)
     wanted = parse_pages(pages) if isinstance(pages, str) else pages
     template = _learn(sample_files([str(r) for r in refs]), name=name, pages=wanted,
                       limits=ReadLimits(dpi=dpi, password=password), section_names=section_names)
+    if form or revision:
+        template = dataclasses.replace(template, form=form or template.form or template.name,
+                                       revision=revision or template.revision)
     return apply_zone_file(template, zones) if zones else template
 
 

@@ -632,7 +632,9 @@ def _run_dask(files, templates, settings, limits, options: BatchOptions, order: 
         client = Client(cluster)
     try:
         nthreads = max(1, sum(client.nthreads().values()))
-        tmpl = client.scatter([tuple(templates)], broadcast=True)[0]  # one object, on every worker
+        from .index import as_index
+
+        tmpl = client.scatter([as_index(templates)], broadcast=True)[0]  # one object, on every worker
         sched = _Scheduler(files, order, window=nthreads * 4)
         pending = as_completed([], with_results=True)
         meta: dict = {}

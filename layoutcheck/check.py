@@ -18,9 +18,10 @@ import numpy as np
 
 from .consensus import Match, SolverSettings, solve
 from .elements import MM_PER_POINT, Element, PageElements
+from .identify import IdentifySettings
 from .sources import PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page, where
 from .template import LearnError, Template, TemplatePage, template_page, with_raster_sections
-from .verdict import Finding, Tolerances, judge, offending
+from .verdict import SEVERITY, Finding, Tolerances, judge, offending, people_first
 
 #: Resolution at which a born-digital reference is rendered to learn how scans of it look
 #: (200 dpi: common practice for office scans; the raster extractor works in mm, so scans at
@@ -235,6 +236,18 @@ class CheckSettings:
     normalise_dpi: float | None = None
     #: ``png`` or ``tiff``.
     normalise_format: str = "png"
+    #: How far the search for a page's template goes (see :mod:`layoutcheck.identify`).
+    identify: IdentifySettings = IdentifySettings()
+    #: The revision each page should be: ``(form, revision)`` pairs, form None for every form
+    #: that has a template of that revision. A page that matches another revision better is
+    #: ``mismatched``, with a finding naming the elements that tell the two apart.
+    expect_revision: tuple[tuple[str | None, str], ...] = ()
+
+    def expected_revision(self, form: str) -> str | None:
+        """The revision asked for pages of ``form``, or None."""
+        named = [r for f, r in self.expect_revision if f == form]
+        anyform = [r for f, r in self.expect_revision if f is None]
+        return (named or anyform or [None])[0]
 
 
 def judged_mask(tp_elements, input_elements: PageElements) -> np.ndarray:
@@ -270,19 +283,35 @@ def match_page(tp: TemplatePage, found: PageElements, settings: CheckSettings) -
                  page_size=(found.width, found.height))
 
 
-def best_match(templates: Sequence[Template], found: PageElements, settings: CheckSettings):
-    """The template page whose elements agree best: ``(template, page, match)``."""
-    from .identify import candidates
+def identify_page(templates, found: PageElements, settings: CheckSettings):
+    """``(index, identification)``: which template page ``found`` is (see :mod:`layoutcheck.identify`).
 
-    best = None
-    for template, tp in candidates(templates, found):
-        m = match_page(tp, found, settings)
-        key = (m.pose is not None, m.support)
-        if best is None or key > best[0]:
-            best = (key, template, tp, m)
-    if best is None:
+    ``templates`` is a :class:`~layoutcheck.index.TemplateIndex` or a sequence of templates.
+    """
+    from .identify import identify
+    from .index import as_index
+
+    index = as_index(templates)
+    return index, identify(index, found, lambda tp: match_page(tp, found, settings), settings.tolerances.min_support,
+                           settings.identify)
+
+
+def alike_templates(index, settings: CheckSettings, neighbours: int = 3):
+    """Pairs of template pages of ``index`` that pages would be ambiguous between (see
+    :func:`layoutcheck.identify.alike_pairs`)."""
+    from .identify import alike_pairs
+
+    return alike_pairs(index, lambda tp, found: match_page(tp, found, settings), settings.tolerances.min_support,
+                       settings.identify, neighbours)
+
+
+def best_match(templates, found: PageElements, settings: CheckSettings):
+    """The template page whose elements agree best: ``(template, page, match)``."""
+    index, ident = identify_page(templates, found, settings)
+    if ident.best is None:
         return None, None, None
-    return best[1], best[2], best[3]
+    template, tp = index.page(ident.best.row)
+    return template, tp, ident.best.match
 
 
 def error_record(source: str, page: int | None, message: str, elapsed_ms: float = 0.0) -> dict:
@@ -338,16 +367,22 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
 def record_for(source: str, page_no: int, found: PageElements, templates: Sequence[Template],
                settings: CheckSettings, t0: float | None = None, page=None) -> dict:
     t0 = time.perf_counter() if t0 is None else t0
-    template, tp, match = best_match(templates, found, settings)
+    index, ident = identify_page(templates, found, settings)
     input_size = (found.width, found.height)
-    if match is None:
+    if ident.best is None:
         msg = "no template page to compare with"
         rec = error_record(source, page_no, f"{where(source, page_no)}: {msg}")
         return rec
+    template, tp = index.page(ident.best.row)
+    match = ident.best.match
     if isinstance(page, RasterPage) and match.pose is not None:
         found, match = look_again(page, found, tp, match, settings)
     verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size)
     recognised = verdict != "unrecognised"
+    if recognised:
+        findings += routing_findings(index, ident, found, settings)
+        findings.sort(key=lambda f: SEVERITY[f.verdict])
+        verdict = findings[0].verdict if findings else "pass"
     rec = {
         "source": source,
         "page": page_no,
@@ -371,11 +406,111 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         # broken by thresholding): in place, but worth a glance when the page is reviewed.
         rec["second_look"] = [r.id for r in match.elements if r.input_index is not None
                               and found.elements[r.input_index].source == "look"] if recognised else []
-    if not recognised:
+    if recognised:
+        rec.update(routing_fields(index, ident, settings))
+    else:
         rec["findings"][0]["message"] += f" (closest: {template.name} page {tp.number})"
+        rec["closest"] = {**_names(template), "template_page": tp.number, "support": round(match.support, 4)}
     if settings.zones or settings.normalise_dir:
         handoff(rec, page, found, tp, match, settings)
     return rec
+
+
+def _names(template: Template) -> dict:
+    """``template``, and ``form`` and ``revision`` where the template declares them."""
+    out = {"template": template.name}
+    if template.form or template.revision:
+        out.update(form=template.form_name, revision=template.revision)
+    return out
+
+
+def _revision_words(template: Template) -> str:
+    return f"{template.form_name} revision {template.revision}" if template.revision else template.name
+
+
+def routing_fields(index, ident, settings: CheckSettings) -> dict:
+    """Record fields on how the page was routed: ``form``/``revision``, ``expected_revision``,
+    ``ambiguous`` (each only where it applies)."""
+    template, tp = index.page(ident.best.row)
+    out = {k: v for k, v in _names(template).items() if k != "template"}
+    want = settings.expected_revision(template.form_name)
+    if want is not None and index.revision_row(ident.best.row, want) is not None:
+        out["expected_revision"] = want
+    if ident.rival is not None:
+        rt, rp = index.page(ident.rival.row)
+        out["ambiguous"] = {**_names(rt), "template_page": rp.number, "support": round(ident.rival.match.support, 4),
+                            "margin": round(ident.best.evidence - ident.rival.evidence, 1)}
+    return out
+
+
+def routing_findings(index, ident, found: PageElements, settings: CheckSettings) -> list[Finding]:
+    """Findings on the choice of template: another revision than the one expected; ambiguity."""
+    out = []
+    best = ident.best
+    template, tp = index.page(best.row)
+    want = settings.expected_revision(template.form_name)
+    want_row = index.revision_row(best.row, want) if want is not None else None
+    if want_row is not None and want_row != best.row:
+        other = ident.tried.get(want_row)
+        wt, wp = index.page(want_row)
+        if other is None:  # the expected revision is solved here if the search did not reach it
+            other_match = match_page(wp, found, settings)
+        else:
+            other_match = other.match
+        tell = revision_differences(tp, best.match, wp, other_match, found.source, settings,
+                                    (f"revision {template.revision}", f"revision {want}"))
+        out.append(Finding("mismatched", f"Page is {_revision_words(template)}, not revision {want} as expected"
+                           + (f": {tell[1]}" if tell[1] else ""), element=tell[0], value=None, limit=None))
+    if ident.rival is not None:
+        rt, rp = index.page(ident.rival.row)
+        n = max(sum(e.judged for e in best.match.elements), 1)
+        if rt.form_name == template.form_name and rt.name != template.name:
+            tell = revision_differences(tp, best.match, rp, ident.rival.match, found.source, settings,
+                                        (f"revision {template.revision}", f"revision {rt.revision}"))
+            msg = (f"Ambiguous: {_revision_words(template)} and revision {rt.revision} explain this page alike "
+                   f"(elements in place {best.match.support:.0%} and {ident.rival.match.support:.0%}); "
+                   + (f"what tells them apart does not decide here: {tell[1]}" if tell[1]
+                      else "no element tells them apart; fix the template set"))
+        else:
+            msg = (f"Ambiguous: {rt.name} page {rp.number} explains this page almost as well as {template.name} page "
+                   f"{tp.number} ({ident.rival.match.support:.0%} of its elements in place against "
+                   f"{best.match.support:.0%}); the two templates are too alike, fix the template set")
+        out.append(Finding("mismatched", msg, value=float(best.evidence - ident.rival.evidence),
+                           limit=float(settings.identify.ambiguity_margin * n)))
+    return out
+
+
+def revision_differences(tp: TemplatePage, match: Match, other_tp: TemplatePage, other: Match, source: str,
+                         settings: CheckSettings, names: tuple[str, str], most: int = 4) -> tuple[str | None, str]:
+    """The elements that tell two revisions apart, and how the page shows each: ``(first id, words)``.
+
+    An element of one revision with no twin in the other (same class, every side within the
+    element tolerance) tells them apart; each is said with its status against its own revision.
+    """
+    from .identify import told_apart
+
+    tol = settings.tolerances.element_tolerance_mm / MM_PER_POINT
+    a_els, b_els = tp.elements_for(source), other_tp.elements_for(source)
+    only_a, only_b = told_apart(a_els, b_els, tol)
+    status_a = {r.id: r for r in match.elements}
+    status_b = {r.id: r for r in other.elements}
+    words = []
+    first = None
+    for els, idx, status, t_words in ((a_els, only_a, status_a, names[0]), (b_els, only_b, status_b, names[1])):
+        for k in sorted(idx, key=lambda k: people_first(els[k])):
+            r = status.get(els[k].id)
+            if r is None or not r.judged:
+                continue
+            first = first or r.id
+            what = els[k].label()
+            if r.status == "ok":
+                words.append(f"{what} of {t_words} is in place")
+            elif r.status == "moved" and r.offset_mm is not None:
+                words.append(f"{what} of {t_words} is {float(np.hypot(*r.offset_mm)):.1f} mm off")
+            else:
+                words.append(f"{what} of {t_words} is {r.status}")
+    shown = "; ".join(words[:most]) + (f"; and {len(words) - most} more" if len(words) > most else "")
+    return first, shown
 
 
 def look_again(page: RasterPage, found: PageElements, tp: TemplatePage, match: Match,

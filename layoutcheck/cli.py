@@ -1,4 +1,4 @@
-"""Command line: ``layoutcheck learn``, ``verify``, ``watch``, ``show`` and ``demo``.
+"""Command line: ``layoutcheck learn``, ``verify``, ``templates``, ``watch``, ``show`` and ``demo``.
 
 Thin on purpose: everything a library user would also need lives in :mod:`layoutcheck.api`, the
 only part of the library this module uses.
@@ -14,7 +14,8 @@ import click
 from click_option_group import optgroup
 
 from . import __version__
-from .api import (BatchOptions, CheckSettings, LearnError, ReadLimits, TemplateError, Tolerances, expand_inputs,
+from .api import (BatchOptions, CheckSettings, LearnError, ReadLimits, TemplateError, Tolerances, alike_templates,
+                  expand_inputs, open_template_index,
                   learn as learn_template, learning_summary, load_templates as api_load_templates, parse_pages,
                   run_batch, save_template, summary_table, update_template, write_report)
 
@@ -27,12 +28,40 @@ class TemplateProblem(click.ClickException):
     exit_code = EXIT_USAGE
 
 
-def load_templates(paths) -> list:
-    """Templates from files and folders of ``*.json`` files; an unreadable one ends the command."""
+def load_templates(paths, warn=None):
+    """The templates of files and folders of ``*.json`` files, as one index.
+
+    A damaged template in a folder is left out, with one line naming it passed to ``warn``; a
+    damaged file named on its own, or no usable template at all, is a :class:`TemplateProblem`.
+    """
     try:
-        return list(api_load_templates(*paths))
+        index = open_template_index(paths)
     except TemplateError as exc:
         raise TemplateProblem(str(exc)) from None
+    for problem in index.problems:
+        (warn or (lambda m: click.echo(m, err=True)))(f"warning: {problem}; left out, the other templates are used")
+    return index
+
+
+def parse_expect_revision(items) -> tuple:
+    """``--expect-revision`` values: ``REV`` (every form) or ``FORM=REV``."""
+    out = []
+    for item in items:
+        form, _, rev = item.rpartition("=")
+        if not rev.strip():
+            raise click.BadParameter(f"{item!r} is not REVISION or FORM=REVISION", param_hint="--expect-revision")
+        out.append((form.strip() or None, rev.strip()))
+    return tuple(out)
+
+
+def expected_revisions(items, templates) -> tuple:
+    """Parsed ``--expect-revision`` values, each checked against the revisions the templates have."""
+    expected = parse_expect_revision(items)
+    for form, rev in expected:
+        if not any((form is None or t.form_name == form) and t.revision == rev for t in templates):
+            raise click.BadParameter(f"no template is revision {rev}" + (f" of {form}" if form else ""),
+                                     param_hint="--expect-revision")
+    return expected
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -52,7 +81,9 @@ def main() -> None:
 @click.option("--section-name", "section_names", multiple=True, metavar="ID=NAME", help="Name a found section, e.g. section-02='Cargo'.")
 @click.option("--zones", "zones_file", type=click.Path(exists=True, dir_okay=False), help="Zones JSON that overrides or adds field zones.")
 @click.option("--password", help="Password of an encrypted reference PDF.")
-def learn(references, output, update, name, pages_spec, dpi, section_names, zones_file, password):
+@click.option("--form", "form", help="The form this template is a revision of, e.g. KBH-101 (with --revision).")
+@click.option("--revision", help="Which revision of the form this template is, e.g. 3.")
+def learn(references, output, update, name, pages_spec, dpi, section_names, zones_file, password, form, revision):
     """Learn a template from a reference (a blank PDF or a clean scan), or from several good samples."""
     if output is None and update is None:
         raise click.UsageError("give the template file to write with -o/--output")
@@ -72,7 +103,7 @@ def learn(references, output, update, name, pages_spec, dpi, section_names, zone
             output = output or update
         else:
             template = learn_template(list(references), name=name, pages=pages, dpi=dpi, password=password,
-                                      section_names=names, zones=zones_file)
+                                      section_names=names, zones=zones_file, form=form, revision=revision)
     except TemplateError as exc:
         raise TemplateProblem(str(exc)) from None
     except LearnError as exc:
@@ -99,6 +130,8 @@ def input_options(f):
         optgroup.option("--max-pages", type=int, default=ReadLimits.max_pages, show_default=True, help="Most pages read from one file."),
         optgroup.option("--max-pixels", type=int, default=ReadLimits.max_pixels, show_default=True, help="Largest image decoded, in pixels."),
         optgroup.option("--also", "more_templates", multiple=True, type=click.Path(exists=True), help="A further template (file or folder) to choose from."),
+        optgroup.option("--expect-revision", "expect_revision", multiple=True, metavar="[FORM=]REVISION",
+                        help="Pages should be this revision of their form (or of FORM); a page that is another revision is mismatched."),
     ])
 
 
@@ -215,7 +248,7 @@ def _progress(quiet: bool):
 @tolerance_options
 @batch_options()
 @handoff_options
-def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max_pixels, more_templates,
+def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max_pixels, more_templates, expect_revision,
            max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, quiet,
            handoff, batch):
     """Check INPUT files (PDF, PNG, JPEG, TIFF) against TEMPLATE (a file or a folder of templates).
@@ -225,7 +258,7 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     """
     templates = load_templates([template, *more_templates])
     tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support)
-    settings = CheckSettings(tolerances=tol, **handoff)
+    settings = CheckSettings(tolerances=tol, expect_revision=expected_revisions(expect_revision, templates), **handoff)
     limits = ReadLimits(max_pixels=max_pixels, max_pages=max_pages, dpi=dpi, password=password)
     if batch["resume"] and (not json_out or json_out == "-"):
         raise click.UsageError("--resume needs --json FILE (the run's output file)")
@@ -249,7 +282,7 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
             bar.close()
     records = result.records
     if report_out:
-        _write_report(report_out, records, templates, tol)
+        _write_report(report_out, records, templates.by_name({r["template"] for r in records if r.get("template")}), tol)
     # With records on standard output, the people's summary goes to standard error.
     to_err = json_out == "-"
     if not quiet and records:
@@ -260,6 +293,33 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
 
 def _write_report(path, records, templates, tolerances):
     write_report(path, records, templates, tolerances)
+
+
+@main.command("templates")
+@click.argument("template_dir", type=click.Path(exists=True))
+@click.option("--neighbours", type=click.IntRange(min=1), default=3, show_default=True,
+              help="Nearest templates (by layout signature) each template is compared with.")
+def templates_command(template_dir, neighbours):
+    """List the templates of TEMPLATE_DIR and warn about pairs so alike that pages would be ambiguous."""
+    index = load_templates([template_dir], warn=click.echo)
+    rows = [("template", "form", "revision", "pages", "elements", "zones")]
+    for t in index:
+        rows.append((t.name, t.form_name, t.revision or "-", str(len(t.pages)), str(sum(p.elements for p in t.pages)),
+                     str(sum(p.zones for p in t.pages))))
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    for k, r in enumerate(rows):
+        click.echo("  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip())
+        if k == 0:
+            click.echo("  ".join("-" * w for w in widths))
+    pairs = alike_templates(index, CheckSettings(), neighbours)
+    for p in pairs:
+        a, b = index.info(p.row), index.info(p.other)
+        na, nb = int(index.rows[p.row][1]), int(index.rows[p.other][1])
+        what = "revisions that no element tells apart" if p.same_form else "too alike: pages would be ambiguous"
+        click.echo(f"warning: {a.name} page {na} and {b.name} page {nb} are {what} "
+                   f"({p.support:.0%} of {b.name}'s elements in place on a clean page of {a.name}; lead {p.margin:g})")
+    click.echo(f"{len(index)} template(s), {index.n_pages} page(s), {len(index.problems)} damaged, {len(pairs)} alike pair(s)")
+    sys.exit(EXIT_FLAGGED if pairs or index.problems else EXIT_PASS)
 
 
 @main.command()
@@ -278,7 +338,7 @@ def _write_report(path, records, templates, tolerances):
 @batch_options(resume=False)
 @handoff_options
 def watch(template, inbox, out_dir, once, settle, json_out, report_out, dpi, password, max_pages, max_pixels,
-          more_templates, max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support,
+          more_templates, expect_revision, max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support,
           quiet, handoff, batch):
     """Watch INBOX: check each file dropped there against TEMPLATE, record it, and move it to
     OUT/pass/, OUT/review/ or OUT/error/.
@@ -295,7 +355,7 @@ def watch(template, inbox, out_dir, once, settle, json_out, report_out, dpi, pas
         raise click.UsageError("--scheduler needs --engine dask")
     templates = load_templates([template, *more_templates])
     tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support)
-    settings = CheckSettings(tolerances=tol, **handoff)
+    settings = CheckSettings(tolerances=tol, expect_revision=expected_revisions(expect_revision, templates), **handoff)
     limits = ReadLimits(max_pixels=max_pixels, max_pages=max_pages, dpi=dpi, password=password)
     try:
         options = BatchOptions(jobs=batch["jobs"], page_timeout=batch["page_timeout"], engine=batch["engine"],
@@ -330,7 +390,10 @@ def show(template, output, reference, dpi):
     labelled, and a searchable table of the elements."""
     from .api import show_template
 
-    (tmpl,) = load_templates([template])
+    try:
+        (tmpl,) = api_load_templates(template)
+    except TemplateError as exc:
+        raise TemplateProblem(str(exc)) from None
     path = show_template(tmpl, output, reference=reference, template_path=template, dpi=dpi)
     click.echo(f"wrote {path}")
 

@@ -24,7 +24,9 @@ import numpy as np
 
 from .elements import Element, PageElements, frame_contains, frame_overlap, merge_frames
 
-FORMAT_VERSION = 1
+#: Version 2 adds the optional ``form`` and ``revision`` fields; a template without them is still
+#: written as version 1, so layoutcheck releases that read only version 1 keep reading it.
+FORMAT_VERSION = 2
 FORMAT_NAME = "layoutcheck-template"
 
 
@@ -166,13 +168,26 @@ class TemplatePage:
 
 @dataclass(frozen=True)
 class Template:
-    """A learned form: a name and its pages."""
+    """A learned form: a name and its pages.
+
+    ``form`` and ``revision`` say that the template is one revision of a form: templates that
+    share a ``form`` are revisions of each other, and a page goes to the revision it matches
+    best (see :mod:`layoutcheck.identify`). A template without a ``form`` is a form of its own,
+    named ``name``.
+    """
 
     name: str
     pages: tuple[TemplatePage, ...]
     references: tuple[str, ...] = ()
     #: Plain warnings about how sure the template is (say, learned from one filled scan).
     warnings: tuple[str, ...] = ()
+    form: str | None = None
+    revision: str | None = None
+
+    @property
+    def form_name(self) -> str:
+        """The form this template is a revision of (its own name when it declares none)."""
+        return self.form or self.name
 
     def page(self, number: int) -> TemplatePage:
         return self.pages[number - 1]
@@ -183,14 +198,17 @@ class Template:
         return build_graph(self)
 
     def to_dict(self) -> dict:
-        return {
+        out = {
             "format": FORMAT_NAME,
-            "format_version": FORMAT_VERSION,
+            "format_version": FORMAT_VERSION if self.form or self.revision else 1,
             "name": self.name,
-            "references": list(self.references),
-            "pages": [p.to_dict() for p in self.pages],
-            **({"warnings": list(self.warnings)} if self.warnings else {}),
         }
+        if self.form or self.revision:
+            out.update(form=self.form, revision=self.revision)
+        out.update(references=list(self.references), pages=[p.to_dict() for p in self.pages])
+        if self.warnings:
+            out["warnings"] = list(self.warnings)
+        return out
 
 
 # -- sections -------------------------------------------------------------------------------------
@@ -396,6 +414,8 @@ def template_from_dict(data: object, where: str = "template") -> Template:
         name = str(data["name"])
         references = tuple(str(r) for r in data.get("references") or [])
         warnings = tuple(str(w) for w in data.get("warnings") or [])
+        form = _optional_text(data.get("form"), "form")
+        revision = _optional_text(data.get("revision"), "revision")
     except (KeyError, TypeError, ValueError, IndexError, AttributeError) as exc:
         raise TemplateError(f"{where}: template is damaged ({type(exc).__name__}: {exc})") from None
     if not pages:
@@ -412,7 +432,17 @@ def template_from_dict(data: object, where: str = "template") -> Template:
         for z in p.zones:
             if not all(np.isfinite(v) for v in z.frame):
                 raise TemplateError(f"{where}: template page {p.number} zone {z.name!r} has an invalid frame")
-    return Template(name, pages, references, warnings)
+    return Template(name, pages, references, warnings, form, revision)
+
+
+def _optional_text(value: object, what: str) -> str | None:
+    """A form or revision field: text, a whole number (kept as its digits) or null."""
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, (str, int)):
+        raise ValueError(f"{what} must be text or a whole number, not {value!r}")
+    text = str(value).strip()
+    return text or None
 
 
 def read_json_file(path: str | os.PathLike, what: str, error: type[Exception]):

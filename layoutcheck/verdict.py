@@ -77,7 +77,7 @@ class Finding:
                 "limit": self.limit}
 
 
-def _people_first(e) -> int:
+def people_first(e) -> int:
     """Boxes and fields first, then rules and marks, then printed text: what a person looks for."""
     return {"box": 0, "checkbox": 0, "field": 1, "mark": 2, "hline": 3, "vline": 3, "line": 3}.get(e.kind, 4)
 
@@ -120,7 +120,7 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
             findings.append(Finding("mismatched", f"Section '{s.name}' ({s.id}) is {dist:.1f} mm from where this form "
                                     f"has it, as a whole ({direction_words(*s.offset_mm)})", element=s.id,
                                     value=dist, limit=tolerances.element_tolerance_mm))
-    for e in sorted(match.elements, key=_people_first):
+    for e in sorted(match.elements, key=people_first):
         if not e.judged or e.status == "ok" or (e.in_moved_section and e.section in moved_sections and e.status == "moved"):
             continue
         who = f"{e.kind.capitalize()} '{e.caption}' ({e.id})" if e.caption else f"{e.kind.capitalize()} ({e.id})"
@@ -163,7 +163,7 @@ def offending(match: Match) -> list[dict]:
         out.append({"id": s.id, "kind": "section", "caption": s.name, "status": "moved",
                     "frame": [round(v, 2) for v in s.frame], "offset_mm": [round(v, 2) for v in s.offset_mm],
                     "size_ratio": None})
-    for e in sorted(match.elements, key=_people_first):
+    for e in sorted(match.elements, key=people_first):
         if not e.judged or e.status == "ok":
             continue
         if e.in_moved_section and e.section in moved and e.status == "moved":

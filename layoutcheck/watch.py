@@ -34,7 +34,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Sequence
 
-from .api import SEVERITY, BatchOptions, CheckSettings, ReadLimits, Template, run_batch, write_report
+from .api import SEVERITY, BatchOptions, CheckSettings, ReadLimits, Template, as_index, run_batch, write_report
 
 #: The three folders a file ends in.
 FOLDERS = ("pass", "review", "error")
@@ -223,7 +223,8 @@ class Watcher:
                  log: Callable[[str], None] = print, progress_factory: Callable | None = None):
         self.inbox = Path(inbox).resolve()
         self.out = Path(out_dir).resolve()
-        self.templates = list(templates)
+        # One index for every round: signatures in arrays, templates read when a page needs them.
+        self.templates = as_index(templates)
         self.settings = settings
         self.limits = limits
         self.options = options
@@ -311,7 +312,8 @@ class Watcher:
                     # The picture is read from where the file is now.
                     flagged.append({**rec, "source": dest})
         t0, c0 = time.perf_counter(), time.process_time()
-        write_report(self.report_path, flagged, self.templates, self.settings.tolerances, views=self._views)
+        named = self.templates.by_name({r["template"] for r in flagged if r.get("template")})
+        write_report(self.report_path, flagged, named, self.settings.tolerances, views=self._views)
         dt, cpu = time.perf_counter() - t0, time.process_time() - c0
         self.summary.report_seconds += dt
         self.log(f"{self.report_path.name}: {len(flagged)} flagged page(s) waiting for review "

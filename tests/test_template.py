@@ -18,7 +18,7 @@ def test_round_trip(tmp_path, vector_template):
     assert again.to_dict() == vector_template.to_dict()
     assert len(again.pages[0].elements) == len(vector_template.pages[0].elements)
     data = json.loads(path.read_text())
-    assert data["format_version"] == FORMAT_VERSION
+    assert data["format_version"] == 1  # no form or revision: still a version 1 file
 
 
 def test_newer_format_is_refused(tmp_path, vector_template):
@@ -26,7 +26,8 @@ def test_newer_format_is_refused(tmp_path, vector_template):
     data["format_version"] = FORMAT_VERSION + 1
     path = tmp_path / "new.json"
     path.write_text(json.dumps(data))
-    with pytest.raises(TemplateError, match=r"^new\.json: template format_version 2 is newer than this layoutcheck reads \(1\); upgrade layoutcheck$"):
+    with pytest.raises(TemplateError, match=rf"^new\.json: template format_version {FORMAT_VERSION + 1} is newer than this "
+                       rf"layoutcheck reads \({FORMAT_VERSION}\); upgrade layoutcheck$"):
         load_template(path)
 
 

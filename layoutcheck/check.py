@@ -207,16 +207,22 @@ def unrecognised_record(source: str, page: int | None, message: str, t0: float) 
 
 
 def pose_record(match: Match, tp: TemplatePage, input_size: tuple[float, float]) -> dict | None:
+    """The record's ``pose``: turn, scales and shift of the best affine approximation over the
+    template page (the pose itself unless it is projective), its 2 x 3 ``matrix``, and the full
+    3 x 3 ``projective`` matrix (template points -> input points)."""
     if match.pose is None:
         return None
-    p = match.pose
+    frame = (0.0, 0.0, tp.width, tp.height)
+    p = match.pose.affine_over(frame)
     return {
         "rotation_deg": round(p.rotation_deg, 4),
         "scale": round(p.scale, 6),
         "scale_x": round(p.scale_x, 6),
         "scale_y": round(p.scale_y, 6),
-        "shift_mm": [round(float(v), 3) for v in p.shift_mm((tp.width, tp.height), input_size)],
+        "shift_mm": [round(float(v), 3) for v in match.pose.shift_mm((tp.width, tp.height), input_size)],
         "matrix": [[round(v, 6) for v in row] for row in p.as_2x3()],
+        "model": match.pose.kind,
+        "projective": [[float(f"{v:.9g}") for v in row] for row in match.pose.as_3x3()],
     }
 
 
@@ -231,28 +237,59 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
     problem = page_content_problem(page.image) if isinstance(page, RasterPage) else None
     if problem:
         return unrecognised_record(page.source, page.page, f"Not a form: {problem}", t0)
+    cap = None
     try:
-        found = extract(page)
+        if isinstance(page, RasterPage):
+            from .capture import prepare
+
+            cap = prepare(page, camera=not page.dpi_stated)
+        found = extract(page if cap is None else cap.page)
     except Exception as exc:  # an extractor bug on one page must not end the batch
         msg = f"{where(page.source, page.page)}: elements could not be read ({type(exc).__name__}: {exc})"
         return error_record(page.source, page.page, msg, (time.perf_counter() - t0) * 1000)
     if not found.elements:
         return unrecognised_record(page.source, page.page, "Not a form: no lines, boxes or text found on the page (blank page?)", t0)
-    return record_for(page.source, page.page, found, templates, settings, t0, page=page)
+    return record_for(page.source, page.page, found, templates, settings, t0, page=page, capture=cap)
+
+
+def camera_settings(settings: CheckSettings) -> CheckSettings:
+    """Settings for a camera capture: the perspective is freed whenever it is measurable, the
+    agreeing set is grown region by region from the vote's cluster, and the vote takes x and y
+    scales up to 15 % apart (the flattened sheet's sides are means of sides seen in perspective)."""
+    from dataclasses import replace
+
+    return replace(settings, solver=replace(settings.solver, perspective_min=0.0, grow=True, max_anisotropy=0.15))
 
 
 def record_for(source: str, page_no: int, found: PageElements, templates: Sequence[Template],
-               settings: CheckSettings, t0: float | None = None, page=None) -> dict:
+               settings: CheckSettings, t0: float | None = None, page=None, capture=None) -> dict:
+    """The record of one page from its found elements (``capture``: see :mod:`layoutcheck.capture`;
+    the found elements are then those of the capture's page)."""
     t0 = time.perf_counter() if t0 is None else t0
-    template, tp, match = best_match(templates, found, settings)
-    input_size = (found.width, found.height)
+    camera = capture is not None and capture.kind == "camera"
+    solve_settings = camera_settings(settings) if camera else settings
+    template, tp, match = best_match(templates, found, solve_settings)
     if match is None:
         msg = "no template page to compare with"
         rec = error_record(source, page_no, f"{where(source, page_no)}: {msg}")
         return rec
-    if isinstance(page, RasterPage) and match.pose is not None:
-        found, match = look_again(page, found, tp, match, settings)
-    verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size)
+    read = page if capture is None else capture.page
+    if isinstance(read, RasterPage) and match.pose is not None:
+        found, match = look_again(read, found, tp, match, solve_settings)
+    if capture is not None and match.pose is not None:
+        from dataclasses import replace
+
+        # One pose from template to input: the match on the capture's page, then its place on the input.
+        match = replace(match, pose=match.pose.compose(capture.to_input))
+    input_size = (found.width, found.height) if capture is None else (page.width, page.height)
+    camera = camera or (match.pose is not None and match.pose.is_projective)
+    readability = None
+    if camera and match.pose is not None and isinstance(page, RasterPage):
+        from .capture import readability as measure
+
+        readability = measure(match.pose, (tp.width, tp.height), page.dpi)
+    verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size,
+                              camera=camera, readability=readability)
     recognised = verdict != "unrecognised"
     rec = {
         "source": source,
@@ -271,6 +308,8 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         ] if recognised else [],
         "elapsed_ms": round((time.perf_counter() - t0) * 1000, 2),
         "error": None,
+        "capture": "camera" if camera else "scan",
+        "effective_dpi": readability.to_dict() if readability is not None and recognised else None,
     }
     if found.source == "raster":
         # Template elements found only by the second look (under a stamp, across a tick, a rule

@@ -149,7 +149,7 @@ def sheet_homography(page_pt: tuple[float, float], frame_px: tuple[int, int], st
         tilt[[0, 3], 1] = [t, -t]  # left edge shorter (or longer)
     rand = rng.uniform(-1, 1, (4, 2)) * dmax * 0.5
     disp = tilt + rand
-    scale = np.maximum(1.0, np.hypot(*disp.T) / dmax)  # no corner beyond the limit
+    scale = np.maximum(1.0, np.hypot(*disp.T) / max(dmax, 1e-9))  # no corner beyond the limit
     quad = placed + disp / scale[:, None]
     src = np.float32([[0, 0], [pw, 0], [pw, ph], [0, ph]])
     return cv2.getPerspectiveTransform(src, quad.astype(np.float32)).astype(float)
@@ -263,10 +263,14 @@ def simulate_photo(source_pdf: str | os.PathLike, settings: CameraSettings = Cam
         rendered = _draw_fill(rendered, source_pdf, st.page, rdpi, rng)
     rendered = cv2.GaussianBlur(rendered, (0, 0), 0.6)
     # Photo pixel -> template point (inverse homography, then the bend) -> render pixel, by rows.
+    # The sheet curls along its x axis (lifted in the middle, flat at its left and right edges);
+    # seen from above, a lifted point moves away from the photo's centre in proportion to its
+    # lift and its distance from that centre: ``bend_mm`` at the farthest point of the page.
     inv = np.linalg.inv(hom)
-    bend_dir = rng.normal(size=2)
-    bend_dir /= np.linalg.norm(bend_dir)
-    bend_pt = st.bend_mm / MM_PER_POINT
+    centre = (inv @ np.array([fw / 2.0, fh / 2.0, 1.0]))
+    centre = centre[:2] / centre[2]
+    reach = float(np.hypot(*(corners - centre).T).max())
+    bend_k = st.bend_mm / MM_PER_POINT / reach
     grey = np.empty((fh, fw), np.uint8)
     paper = np.empty((fh, fw), np.float32)
     xs = np.arange(fw, dtype=np.float32) + 0.5
@@ -277,10 +281,9 @@ def simulate_photo(source_pdf: str | os.PathLike, settings: CameraSettings = Cam
         tx = (inv[0, 0] * gx + inv[0, 1] * gy + inv[0, 2]) / den
         ty = (inv[1, 0] * gx + inv[1, 1] * gy + inv[1, 2]) / den
         inside = (tx >= 0) & (tx <= page_pt[0]) & (ty >= 0) & (ty <= page_pt[1])
-        # A bend along the page's x axis: zero at the left and right edges, largest in the middle.
-        b = bend_pt * np.sin(np.pi * np.clip(tx / page_pt[0], 0, 1))
-        mx = ((tx + b * bend_dir[0]) * k - 0.5).astype(np.float32)
-        my = ((ty + b * bend_dir[1]) * k - 0.5).astype(np.float32)
+        b = bend_k * np.sin(np.pi * np.clip(tx / page_pt[0], 0, 1))
+        mx = ((tx + b * (tx - centre[0])) * k - 0.5).astype(np.float32)
+        my = ((ty + b * (ty - centre[1])) * k - 0.5).astype(np.float32)
         grey[r0:r1] = cv2.remap(rendered, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=255)
         paper[r0:r1] = inside
     # The sheet's edge anti-aliased over about one pixel.
@@ -313,7 +316,14 @@ def simulate_photo(source_pdf: str | os.PathLike, settings: CameraSettings = Cam
     rgb = cv2.merge(chans)
     del desk, sheet, noise, chans
     jpeg = _jpeg(rgb, st)
-    return SimulatedPhoto(rgb, pose, st, page_pt, tamper, jpeg)
+    # The truth: the homography the bent sheet is closest to (least squares over the page).
+    gx, gy = np.meshgrid(np.linspace(0, page_pt[0], 15), np.linspace(0, page_pt[1], 15))
+    grid = np.column_stack([gx.ravel(), gy.ravel()])
+    # The photo shows template point t + b(t) at H(t) (see the sampling above): to first order
+    # the content at t is seen at H(t - b(t)).
+    bent = grid - (bend_k * np.sin(np.pi * grid[:, 0] / page_pt[0]))[:, None] * (grid - centre)
+    truth = Pose.from_pairs(grid, pose.apply(bent), "projective")
+    return SimulatedPhoto(rgb, truth, st, page_pt, tamper, jpeg)
 
 
 def _jpeg(rgb: np.ndarray, st: CameraSettings) -> bytes:

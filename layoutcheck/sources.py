@@ -72,6 +72,10 @@ class RasterPage:
     image: np.ndarray = field(repr=False)
     dpi: float
     bitonal: bool = False
+    #: False when the file states no usable resolution (none, or one that makes the image a
+    #: sheet of many feet, as phones write 72 dpi): ``dpi`` is then a working value taken from
+    #: the image's size, and the page is read as a camera capture (see :mod:`layoutcheck.capture`).
+    dpi_stated: bool = True
 
     kind = "raster"
 
@@ -274,10 +278,11 @@ def _image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
             dpi = snap_dpi(float(info_dpi[0]))
         except (TypeError, ValueError, IndexError):
             dpi = None
+    if dpi is not None and max(w, h) / dpi > _max_sheet_in():
+        dpi = None  # a stated resolution that makes the image a sheet of many feet is no resolution
     if dpi is None:
         dpi = limits.dpi
-    if dpi is None:
-        return PageError(source, n, f"{where(source, n)}: resolution unknown (the file states no dpi, or one below 72); give --dpi N")
+    stated = dpi is not None
     try:
         # A frame of a multi-page file is copied as it is read (seeking on reuses the buffer):
         # the array below is that copy. EXIF orientation is applied only when the file has one.
@@ -301,7 +306,17 @@ def _image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
         arr = np.asarray(im, dtype=np.uint8)
     except Exception as exc:
         return PageError(source, n, f"{where(source, n)}: image data is damaged ({_one_line(exc)})")
-    return RasterPage(source, n, arr, float(dpi), bitonal)
+    if not stated:
+        from .capture import working_dpi
+
+        dpi = working_dpi(arr.shape)
+    return RasterPage(source, n, arr, float(dpi), bitonal, stated)
+
+
+def _max_sheet_in() -> float:
+    from .capture import MAX_SHEET_IN
+
+    return MAX_SHEET_IN
 
 
 def _exif_orientation(frame) -> int | None:

@@ -11,7 +11,7 @@ from .consensus import Match
 
 
 #: Most severe first; a page's verdict is the most severe of its findings.
-VERDICTS = ("error", "unrecognised", "mismatched", "rescaled", "skewed", "shifted", "pass")
+VERDICTS = ("error", "unrecognised", "mismatched", "retake", "rescaled", "skewed", "shifted", "pass")
 SEVERITY = {v: i for i, v in enumerate(VERDICTS)}
 
 
@@ -40,6 +40,13 @@ class Tolerances:
     #: so a filled form (every element there) passes with room and a different form of the same
     #: house style (shared rules and margins) does not; see docs/benchmarks.md.
     min_support: float = 0.5
+    #: Least effective resolution, dpi, anywhere on the form of a camera capture before it must
+    #: be taken again. OCR engines commonly want 200-300 dpi (common practice); 150 still
+    #: shows 8 pt print at about 17 pixels per line.
+    min_dpi: float = 150.0
+    #: Most the perspective correction of a camera capture may enlarge one part of the form
+    #: relative to another (a photo taken too obliquely).
+    max_stretch: float = 2.0
 
     def __post_init__(self) -> None:
         for f in fields(self):
@@ -103,9 +110,22 @@ def rotation_words(rotation_deg: float) -> str:
     return f"turned {abs(rotation_deg):.2f}° {side}"
 
 
+def part_words(x: float, y: float, size: tuple[float, float]) -> str:
+    """'top left', 'middle', 'bottom right' ... for a template point on a page of ``size``."""
+    w, h = size
+    col = ("left", "", "right")[min(2, int(3 * x / max(w, 1e-9)))]
+    row = ("top", "", "bottom")[min(2, int(3 * y / max(h, 1e-9)))]
+    return " ".join(p for p in (row, col) if p) or "middle"
+
+
 def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, float],
-          input_size: tuple[float, float]) -> tuple[str, list[Finding]]:
-    """Verdict and findings of a matched page, most severe finding first."""
+          input_size: tuple[float, float], camera: bool = False, readability=None) -> tuple[str, list[Finding]]:
+    """Verdict and findings of a matched page, most severe finding first.
+
+    A camera capture (``camera``) is always turned and scaled: its turn, scale and shift are
+    not judged. Its ``readability`` (:class:`layoutcheck.capture.Readability`) is: too small or
+    too oblique a photo must be taken again (verdict ``retake``).
+    """
     findings: list[Finding] = []
     if match.pose is None or match.support < tolerances.min_support:
         why = match.reason or (f"only {match.support:.0%} of the template's elements agree on one placement "
@@ -135,6 +155,22 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
             val = e.size_ratio
         findings.append(Finding("mismatched", msg, element=e.id, value=val,
                                 limit=tolerances.element_size_pct if e.status == "resized" else tolerances.element_tolerance_mm))
+    if camera:
+        if readability is not None:
+            where = part_words(*readability.worst_at, template_size)
+            if readability.worst_dpi < tolerances.min_dpi:
+                findings.append(Finding("retake", f"Photo too small to read: the form's {where} is at "
+                                        f"{readability.worst_dpi:.0f} dpi (at least {tolerances.min_dpi:g} needed); "
+                                        "take it again closer, or at a higher resolution", value=readability.worst_dpi,
+                                        limit=tolerances.min_dpi))
+            if readability.stretch > tolerances.max_stretch:
+                findings.append(Finding("retake", f"Photo taken too obliquely: removing the perspective would stretch "
+                                        f"the form's {where} {readability.stretch:.1f} times as much as its best part "
+                                        f"(at most {tolerances.max_stretch:g}); take it again from straight above",
+                                        value=readability.stretch, limit=tolerances.max_stretch))
+        findings.sort(key=lambda f: SEVERITY[f.verdict])
+        return (findings[0].verdict if findings else "pass"), findings
+    pose = pose.affine_over((0.0, 0.0, *template_size))
     sx, sy = pose.scale_x, pose.scale_y
     worst = max(abs(sx - 1.0), abs(sy - 1.0)) * 100.0
     if worst > tolerances.max_scale_error_pct:
@@ -145,7 +181,7 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
     if abs(rot) > tolerances.max_skew_deg:
         findings.append(Finding("skewed", f"Content {rotation_words(rot)} (limit {tolerances.max_skew_deg:g}°)",
                                 value=rot, limit=tolerances.max_skew_deg))
-    shift = pose.shift_mm(template_size, input_size)
+    shift = match.pose.shift_mm(template_size, input_size)
     dist = float(np.hypot(*shift))
     if dist > tolerances.max_shift_mm:
         findings.append(Finding("shifted", f"Content sits {direction_words(*shift)} off centre on the sheet "

@@ -18,7 +18,7 @@ from .consensus import Match, SolverSettings, solve
 from .elements import MM_PER_POINT, PageElements
 from .sources import PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page, where
 from .template import Template, TemplatePage, template_page, with_raster_sections
-from .verdict import Finding, Tolerances, judge, offending
+from .verdict import Finding, Tolerances, judge, offending, too_small
 
 #: Resolution at which a born-digital reference is rendered to learn how scans of it look
 #: (200 dpi: common practice for office scans; the raster extractor works in mm, so scans at
@@ -67,12 +67,15 @@ def parse_pages(spec: str | None) -> set[int] | None:
     return out
 
 
-def reference_pages(path: str, limits: ReadLimits, pages: set[int] | None, with_raster: bool = True):
+def reference_pages(path: str, limits: ReadLimits, pages: set[int] | None, with_raster: bool = True,
+                    min_dpi: float = Tolerances.min_dpi):
     """``(page, vector elements or None, raster elements or None)`` per page of a reference.
 
     A born-digital page is also rendered and read as a scan would be (at
     :data:`REFERENCE_RENDER_DPI`), so scans of the form have elements of their own kind to match.
-    Raises :class:`LearnError` for a page that cannot be read.
+    A photographed reference (no usable resolution stated) is read as its sheet, found on the
+    desk, upright and evenly lit (:mod:`layoutcheck.capture`); it must show every part of the
+    sheet at ``min_dpi`` at least. Raises :class:`LearnError` for a page that cannot be read.
     """
     for page in read_pages(path, limits, pages):
         if isinstance(page, PageError):
@@ -86,13 +89,23 @@ def reference_pages(path: str, limits: ReadLimits, pages: set[int] | None, with_
                     raise LearnError(rendered.message)
                 ras = extract(rendered)
             yield page, vec, ras
+        elif not page.dpi_stated:
+            from .capture import prepare, readability
+
+            cap = prepare(page, camera=True)
+            flat = cap.page
+            read = readability(cap.to_input, (flat.width, flat.height), page.dpi)
+            if read.worst_dpi < min_dpi:
+                raise LearnError(f"{where(path, page.page)}: photo too small to learn from: parts of the sheet are at "
+                                 f"{read.worst_dpi:.0f} dpi (at least {min_dpi:g} needed); photograph it closer")
+            yield flat, None, extract(flat)
         else:
             yield page, None, extract(page)
 
 
 def learn(references: Sequence[str], name: str | None = None, pages: set[int] | None = None,
           limits: ReadLimits = ReadLimits(), section_names: dict[str, str] | None = None,
-          with_raster: bool = True) -> Template:
+          with_raster: bool = True, min_dpi: float = Tolerances.min_dpi) -> Template:
     """Learn a template from one reference (a blank PDF or a clean scan; every page of it).
 
     Several references are taken as good samples of the same form: see
@@ -110,7 +123,7 @@ def learn(references: Sequence[str], name: str | None = None, pages: set[int] | 
                                              with_raster=with_raster))
     ref = refs[0]
     out_pages: list[TemplatePage] = []
-    for page, vec, ras in reference_pages(ref, limits, pages, with_raster):
+    for page, vec, ras in reference_pages(ref, limits, pages, with_raster, min_dpi):
         tp = template_page(len(out_pages) + 1, vec, ras, section_names)
         if len(tp.elements) < 3:
             raise LearnError(f"{where(ref, page.page)}: only {len(tp.elements)} form elements found; "
@@ -300,7 +313,8 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         "findings": [f.to_dict() for f in findings],
         "pose": pose_record(match, tp, input_size) if recognised else None,
         "support": round(match.support, 4),
-        "offending": offending(match) if recognised else [],
+        "offending": offending(match, ("missing", "resized") if camera and too_small(readability, settings.tolerances)
+                               else ()) if recognised else [],
         "sections": [
             {"id": s.id, "name": s.name, "status": s.status, "offset_mm": [round(v, 2) for v in s.offset_mm],
              "support": round(s.support, 4), "elements": s.elements}

@@ -91,7 +91,9 @@ def main() -> None:
 @click.option("--section-name", "section_names", multiple=True, metavar="ID=NAME", help="Name a found section, e.g. section-02='Cargo'.")
 @click.option("--zones", "zones_file", type=click.Path(exists=True, dir_okay=False), help="Zones JSON that overrides or adds field zones.")
 @click.option("--password", help="Password of an encrypted reference PDF.")
-def learn(references, output, name, pages_spec, dpi, section_names, zones_file, password):
+@click.option("--min-dpi", type=float, default=Tolerances.min_dpi, show_default=True,
+              help="Least effective resolution of a photographed reference.")
+def learn(references, output, name, pages_spec, dpi, section_names, zones_file, password, min_dpi):
     """Learn a template from a reference (a blank PDF or a clean scan), or from several good samples."""
     from .check import LearnError, learn as learn_template, parse_pages
 
@@ -107,7 +109,8 @@ def learn(references, output, name, pages_spec, dpi, section_names, zones_file, 
         names[k.strip()] = v.strip()
     limits = ReadLimits(dpi=dpi, password=password)
     try:
-        template = learn_template(list(references), name=name, pages=pages, limits=limits, section_names=names)
+        template = learn_template(list(references), name=name, pages=pages, limits=limits, section_names=names,
+                                  min_dpi=min_dpi)
         if zones_file:
             from .zones import apply_zone_file
 
@@ -135,12 +138,16 @@ def tolerance_options(f):
     f = click.option("--element-tolerance", type=float, default=Tolerances.element_tolerance_mm, show_default=True, help="Millimetres an element may sit off its place.")(f)
     f = click.option("--element-size-tolerance", type=float, default=Tolerances.element_size_pct, show_default=True, help="Percent size change of an element accepted.")(f)
     f = click.option("--min-support", type=float, default=Tolerances.min_support, show_default=True, help="Share of elements that must agree for the page to be the form.")(f)
+    f = click.option("--min-dpi", type=float, default=Tolerances.min_dpi, show_default=True,
+                     help="Least effective resolution anywhere on the form of a photo; below it the photo is to be taken again.")(f)
     return f
 
 
-def make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support) -> Tolerances:
+def make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support,
+                    min_dpi=Tolerances.min_dpi) -> Tolerances:
     try:
-        return Tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support)
+        return Tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support,
+                          min_dpi)
     except ValueError as exc:
         raise click.UsageError(str(exc)) from None
 
@@ -227,7 +234,7 @@ def _progress_bar():
 @handoff_options
 @batch_options
 def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max_pixels, more_templates,
-           max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, quiet,
+           max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, min_dpi, quiet,
            handoff, batch):
     """Check INPUT files (PDF, PNG, JPEG, TIFF) against TEMPLATE (a file or a folder of templates).
 
@@ -238,7 +245,7 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     from .check import CheckSettings
 
     templates = load_templates([template, *more_templates])
-    tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support)
+    tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, min_dpi)
     settings = CheckSettings(tolerances=tol, **handoff)
     limits = ReadLimits(max_pixels=max_pixels, max_pages=max_pages, dpi=dpi, password=password)
     if batch["resume"] and (not json_out or json_out == "-"):

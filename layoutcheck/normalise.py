@@ -76,6 +76,8 @@ def resample(image: np.ndarray, out_to_in: np.ndarray, size: tuple[int, int], bi
     image : (H, W) uint8 array
         Grey input, 0 black .. 255 white; outside it is white paper.
     out_to_in : (3, 3) or (2, 3) array
+        A 3 x 3 map may carry perspective (a photo): it is then sampled by
+        ``cv2.warpPerspective``.
     size : (width, height)
         Output size in pixels.
     bitonal : bool
@@ -92,7 +94,8 @@ def resample(image: np.ndarray, out_to_in: np.ndarray, size: tuple[int, int], bi
     When the output is much coarser than the input (more than 1.5 input pixels per output pixel)
     the input is first reduced by area averaging, so thin rules do not alias away.
     """
-    m = np.vstack([np.asarray(out_to_in, dtype=float)[:2], [0.0, 0.0, 1.0]])
+    m = np.asarray(out_to_in, dtype=float)
+    m = m if m.shape == (3, 3) else np.vstack([m[:2], [0.0, 0.0, 1.0]])
     img = np.ascontiguousarray(image, dtype=np.uint8)
     # Input px per output px, at the output's centre (the same everywhere unless in perspective).
     step = float(np.sqrt(np.prod(Pose(m).local_scales(np.array([[size[0] / 2.0, size[1] / 2.0]]))[0])))

@@ -118,6 +118,12 @@ def part_words(x: float, y: float, size: tuple[float, float]) -> str:
     return " ".join(p for p in (row, col) if p) or "middle"
 
 
+def too_small(readability, tolerances: Tolerances) -> bool:
+    """Whether a camera capture shows part of its form below the least resolution: its missing
+    and resized elements are then not judged (print that small cannot be made out reliably)."""
+    return readability is not None and readability.worst_dpi < tolerances.min_dpi
+
+
 def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, float],
           input_size: tuple[float, float], camera: bool = False, readability=None) -> tuple[str, list[Finding]]:
     """Verdict and findings of a matched page, most severe finding first.
@@ -133,6 +139,8 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
         return "unrecognised", [Finding("unrecognised", f"Not this form: {why}", value=match.support,
                                         limit=tolerances.min_support)]
     pose = match.pose
+    blurred = camera and too_small(readability, tolerances)
+    unclear = []
     moved_sections = {s.id for s in match.sections if s.status == "moved"}
     for s in match.sections:
         if s.status == "moved":
@@ -144,6 +152,9 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
         if not e.judged or e.status == "ok" or (e.in_moved_section and e.section in moved_sections and e.status == "moved"):
             continue
         who = f"{e.kind.capitalize()} '{e.caption}' ({e.id})" if e.caption else f"{e.kind.capitalize()} ({e.id})"
+        if blurred and e.status in ("missing", "resized"):
+            unclear.append(who)
+            continue
         if e.status == "missing":
             msg = f"{who} is missing"
             val = None
@@ -156,6 +167,10 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
         findings.append(Finding("mismatched", msg, element=e.id, value=val,
                                 limit=tolerances.element_size_pct if e.status == "resized" else tolerances.element_tolerance_mm))
     if camera:
+        if unclear:
+            shown = ", ".join(unclear[:3]) + (f" and {len(unclear) - 3} more" if len(unclear) > 3 else "")
+            findings.append(Finding("retake", f"{len(unclear)} of the form's elements could not be made out at this "
+                                    f"resolution, so are not judged: {shown}", value=float(len(unclear))))
         if readability is not None:
             where = part_words(*readability.worst_at, template_size)
             if readability.worst_dpi < tolerances.min_dpi:
@@ -191,8 +206,12 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
     return verdict, findings
 
 
-def offending(match: Match) -> list[dict]:
-    """Offending elements and sections for the record; a section moved as one is one entry."""
+def offending(match: Match, unjudged: tuple[str, ...] = ()) -> list[dict]:
+    """Offending elements and sections for the record; a section moved as one is one entry.
+
+    Elements whose status is in ``unjudged`` are left out (missing and resized ones of a photo
+    too small to read, see :func:`too_small`).
+    """
     out = []
     moved = {s.id: s for s in match.sections if s.status == "moved"}
     for s in moved.values():
@@ -200,7 +219,7 @@ def offending(match: Match) -> list[dict]:
                     "frame": [round(v, 2) for v in s.frame], "offset_mm": [round(v, 2) for v in s.offset_mm],
                     "size_ratio": None})
     for e in sorted(match.elements, key=_people_first):
-        if not e.judged or e.status == "ok":
+        if not e.judged or e.status == "ok" or e.status in unjudged:
             continue
         if e.in_moved_section and e.section in moved and e.status == "moved":
             continue

@@ -392,8 +392,11 @@ def handoff(rec: dict, page, found: PageElements, tp: TemplatePage, match: Match
         if rec["verdict"] in NORMALISABLE and match.pose is not None and page is not None:
             from .normalise import normalise_page
 
+            # A photo is written at its effective resolution at the form's centre (its file has none).
+            eff = (rec.get("effective_dpi") or {}).get("centre")
+            dpi = settings.normalise_dpi or (float(round(eff)) if eff else None)
             rec["normalised"] = normalise_page(page, match.pose, (tp.width, tp.height), settings.normalise_dir,
-                                               settings.normalise_dpi, settings.normalise_format)
+                                               dpi, settings.normalise_format)
     return rec
 
 

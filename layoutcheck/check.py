@@ -16,7 +16,7 @@ import numpy as np
 
 from .consensus import Match, SolverSettings, solve
 from .elements import MM_PER_POINT, PageElements
-from .sources import PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page, where
+from .sources import USUAL_DPI, PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page, where
 from .template import Template, TemplatePage, template_page, with_raster_sections
 from .verdict import Finding, Tolerances, judge, offending, too_small
 
@@ -392,9 +392,10 @@ def handoff(rec: dict, page, found: PageElements, tp: TemplatePage, match: Match
         if rec["verdict"] in NORMALISABLE and match.pose is not None and page is not None:
             from .normalise import normalise_page
 
-            # A photo is written at its effective resolution at the form's centre (its file has none).
+            # A photo is written at the usual resolution nearest its effective one at the form's
+            # centre (its file states none; a usual value is read back as written).
             eff = (rec.get("effective_dpi") or {}).get("centre")
-            dpi = settings.normalise_dpi or (float(round(eff)) if eff else None)
+            dpi = settings.normalise_dpi or (float(min(USUAL_DPI, key=lambda u: abs(u - eff))) if eff else None)
             rec["normalised"] = normalise_page(page, match.pose, (tp.width, tp.height), settings.normalise_dir,
                                                dpi, settings.normalise_format)
     return rec

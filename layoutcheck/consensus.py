@@ -738,7 +738,7 @@ def refine(pose: Pose, tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray | Non
 
 
 def grow(h: Hypothesis, tmpl: FrameArrays, inp: FrameArrays, weights: np.ndarray, settings: SolverSettings,
-         start: float = 0.3, factor: float = 1.5) -> Pose:
+         start: float = 0.3, factor: float = 1.5, pairs: tuple[np.ndarray, np.ndarray] | None = None) -> Pose:
     """Grow the agreeing set region by region from the vote's cluster; returns the pose.
 
     On a page seen in perspective, single-element votes agree only locally: the winning shift
@@ -746,7 +746,8 @@ def grow(h: Hypothesis, tmpl: FrameArrays, inp: FrameArrays, weights: np.ndarray
     the page's extent around :attr:`Hypothesis.seed`, the pose is refitted on the elements of a
     disc that widens by ``factor`` each round, each round's pose predicting the next ring's
     places; the perspective is freed only once the disc spans most of the page (a homography
-    fitted on one corner would not extrapolate).
+    fitted on one corner would not extrapolate). ``pairs`` limits the candidate pairs (else
+    any compatible pair near its predicted place is one).
     """
     d = np.hypot(*(tmpl.centers - np.array(h.seed)).T)
     reach = float(d.max()) if len(d) else 0.0
@@ -756,8 +757,12 @@ def grow(h: Hypothesis, tmpl: FrameArrays, inp: FrameArrays, weights: np.ndarray
         inside = np.flatnonzero(d <= radius)
         for _ in range(2):
             pred = pose.apply(tmpl.centers)
-            a = assign(pred, inp.centers, *spatial_pairs(pred, tmpl, inp, settings.refine_gate, pose.scale, settings,
-                                                         only=inside), settings.refine_gate)
+            if pairs is None:
+                cand = spatial_pairs(pred, tmpl, inp, settings.refine_gate, pose.scale, settings, only=inside)
+            else:
+                sel = np.isin(pairs[0], inside)
+                cand = (pairs[0][sel], pairs[1][sel])
+            a = assign(pred, inp.centers, *cand, settings.refine_gate)
             got = np.flatnonzero(a >= 0)
             if len(got) < 3:
                 break
@@ -802,6 +807,8 @@ def solve_correspondences(model_frames: FrameArrays, input_frames: FrameArrays, 
     hyps = _strong(vote_pose(model_frames, input_frames, ti, ii, settings))
     best = None
     for h in hyps:
+        if settings.grow:
+            h = Hypothesis(grow(h, model_frames, input_frames, weights, settings, pairs=(ti, ii)), h.votes, h.seed)
         # Refine on the given pairs near this hypothesis' prediction (twice the refinement gate).
         pred = h.pose.apply(model_frames.centers)
         near = np.hypot(*(pred[ti] - input_frames.centers[ii]).T) <= 2.0 * settings.refine_gate

@@ -6,6 +6,8 @@ fixed order, under a short preface. Run it after the benchmarks:
 
     python bench/bench_consensus.py && python bench/bench_raster.py && python bench/bench_scans.py \\
       && python bench/bench_normalise.py && python bench/bench_batch.py && python bench/collect.py
+
+The camera benchmark runs in parts (see ``bench/bench_camera.py``) before ``collect.py``.
 """
 
 from __future__ import annotations
@@ -20,6 +22,7 @@ ORDER = (
     ("scans", "Simulated scans: accuracy, speed and memory end to end"),
     ("normalise", "Normalised pages and zones"),
     ("batch", "Batches: throughput, choosing among 50 templates, memory"),
+    ("camera", "Camera captures: photos end to end, homography against findHomography"),
 )
 PREFACE = """# Benchmarks
 

@@ -340,3 +340,23 @@ def readability(pose: Pose, template_size: tuple[float, float], input_dpi: float
     k = int(np.argmin(sv[:, 0]))
     return Readability(float(np.sqrt(centre[0] * centre[1])), float(sv[k, 0]), (float(grid[k, 0]), float(grid[k, 1])),
                        float(sv[:, 1].max() / max(sv[:, 0].min(), 1e-9)))
+
+
+def in_template_frame(page: RasterPage, pose: Pose, size_pt: tuple[float, float], dpi: float) -> Capture:
+    """The input photo seen in the template's frame through a first pose: a second reading.
+
+    ``pose`` maps template points to the input's points. The photo is resampled
+    (``cv2.warpPerspective``) onto the template page at ``dpi`` and its light flattened, so the
+    extractor reads the form as a flat scan with the perspective removed (rules upright and
+    square to each other, whatever the sheet's outline gave); the capture's pose to the input is
+    ``pose`` itself.
+    """
+    from .normalise import output_size, output_to_input_px, resample
+
+    m = output_to_input_px(pose, float(page.dpi), dpi)
+    size = output_size(size_pt, dpi)
+    image = resample(np.ascontiguousarray(page.image, dtype=np.uint8), m, size, interpolation="linear")
+    flat = flatten_light(image, dpi)
+    margin = max(1, int(round(EDGE_MARGIN_MM * dpi / 25.4)))
+    flat[:margin], flat[-margin:], flat[:, :margin], flat[:, -margin:] = 255, 255, 255, 255
+    return Capture("camera", RasterPage(page.source, page.page, flat, dpi, False), pose, None)

@@ -265,13 +265,24 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
     return record_for(page.source, page.page, found, templates, settings, t0, page=page, capture=cap)
 
 
-def camera_settings(settings: CheckSettings) -> CheckSettings:
+#: Scales considered for a photo whose sheet was found: its page is the sheet at a resolution
+#: that takes the sheet's long side as 11.35 in, so the form is at scale 1 within the spread of
+#: paper sizes (A5's 8.27 in to A3's 16.5 in long side: ISO 216; Letter 11 in: ANSI).
+SHEET_SCALE_RANGE = (0.7, 1.45)
+
+
+def camera_settings(settings: CheckSettings, sheet_found: bool = False) -> CheckSettings:
     """Settings for a camera capture: the perspective is freed whenever it is measurable, the
     agreeing set is grown region by region from the vote's cluster, and the vote takes x and y
-    scales up to 15 % apart (the flattened sheet's sides are means of sides seen in perspective)."""
+    scales up to 15 % apart (the flattened sheet's sides are means of sides seen in perspective).
+    With the sheet found, only scales near 1 are considered (:data:`SHEET_SCALE_RANGE`): a
+    filled-in photo's handwriting must not pair the form's small labels with large scribbles;
+    for the same reason printed text does not vote for the scale."""
     from dataclasses import replace
 
-    return replace(settings, solver=replace(settings.solver, perspective_min=0.0, grow=True, max_anisotropy=0.15))
+    extra = {"scale_range": SHEET_SCALE_RANGE} if sheet_found else {}
+    return replace(settings, solver=replace(settings.solver, perspective_min=0.0, grow=True, max_anisotropy=0.15,
+                                            text_scale=False, **extra))
 
 
 def record_for(source: str, page_no: int, found: PageElements, templates: Sequence[Template],
@@ -280,12 +291,15 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
     the found elements are then those of the capture's page)."""
     t0 = time.perf_counter() if t0 is None else t0
     camera = capture is not None and capture.kind == "camera"
-    solve_settings = camera_settings(settings) if camera else settings
+    solve_settings = camera_settings(settings, capture.sheet_px is not None) if camera else settings
     template, tp, match = best_match(templates, found, solve_settings)
     if match is None:
         msg = "no template page to compare with"
         rec = error_record(source, page_no, f"{where(source, page_no)}: {msg}")
         return rec
+    if camera and match.pose is not None:
+        template, tp, capture, found, match = second_reading(templates, page, capture, found, template, tp, match,
+                                                             solve_settings)
     read = page if capture is None else capture.page
     if isinstance(read, RasterPage) and match.pose is not None:
         found, match = look_again(read, found, tp, match, solve_settings)
@@ -335,6 +349,55 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
     if settings.zones or settings.normalise_dir:
         handoff(rec, page, found, tp, match, settings)
     return rec
+
+
+#: Most resolution at which a photo is read a second time, in its template's frame (dpi).
+SECOND_READING_DPI = 300.0
+
+
+def second_reading(templates, page, capture, found, template, tp, match, settings):
+    """:func:`read_again` for the chosen template page. A page that agrees with none well enough
+    (its first reading may have missed the rules that tell the forms apart) is read again for
+    each of the three template pages it agreed with best; the best agreeing is kept. Returns
+    ``(template, tp, capture, found, match)``."""
+    if match.support >= settings.tolerances.min_support:
+        return (template, tp, *read_again(page, capture, found, tp, match, settings))
+    firsts = [(t, p, match if p is tp else match_page(p, found, settings)) for t in templates for p in t.pages]
+    firsts = sorted((x for x in firsts if x[2].pose is not None), key=lambda x: -x[2].support)[:3]
+    best = (template, tp, capture, found, match)
+    for t, p, first in firsts:
+        cap2, found2, m2 = read_again(page, capture, found, p, first, settings)
+        if m2.support > best[4].support:
+            best = (t, p, cap2, found2, m2)
+    return best
+
+
+def read_again(page: RasterPage, capture, found: PageElements, tp: TemplatePage, match: Match,
+               settings: CheckSettings):
+    """Read a photo a second time, in the template's frame through the first match's pose.
+
+    The first reading sees the sheet as its outline gave it; an outline off by a few
+    millimetres (a corner in shadow) leaves the rules slightly oblique to each other, and some
+    are then missed. Seen through the first pose, the form is upright and square, as a flat scan
+    (:func:`layoutcheck.capture.in_template_frame`). Returns ``(capture, found, match)``: the
+    second reading's when it agrees at least as well, else the first's, with the match's pose
+    still on the capture's page.
+    """
+    from dataclasses import replace
+
+    from .capture import in_template_frame
+
+    pose = match.pose.compose(capture.to_input)
+    centre = pose.local_scales(np.array([[tp.width / 2, tp.height / 2]]))[0]
+    dpi = float(min(SECOND_READING_DPI, page.dpi * np.sqrt(centre[0] * centre[1])))
+    second = in_template_frame(page, pose, (tp.width, tp.height), dpi)
+    found2 = extract(second.page)
+    # The form now lies at scale 1 within a few percent: only scales near it are considered.
+    near = replace(settings, solver=replace(settings.solver, scale_range=(0.9, 1.1)))
+    match2 = match_page(tp, found2, near)
+    if match2.pose is None or match2.support < match.support:
+        return capture, found, match
+    return second, found2, match2
 
 
 def look_again(page: RasterPage, found: PageElements, tp: TemplatePage, match: Match,

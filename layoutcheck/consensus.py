@@ -99,6 +99,10 @@ class SolverSettings:
     #: Largest |log(sx / sy)| the vote takes from the boxes' own sizes; beyond it one scale is
     #: used (5 %: fit-to-page and feeders; the flattened sheet of a photo may be stretched more).
     max_anisotropy: float = 0.05
+    #: Whether printed text votes for the page scale. On a photo of a filled form, blobs of
+    #: handwriting beside the labels make text sizes unreliable: rules and boxes alone then
+    #: vote (when at least ten pairs of them do).
+    text_scale: bool = True
     #: Grow the agreeing set region by region from the vote's cluster (for pages seen in
     #: perspective, whose single-element votes agree only locally).
     grow: bool = False
@@ -565,11 +569,15 @@ def _hypothesis_for_rotation(tmpl, inp, ti, ii, pidx, prot, rot, settings) -> Hy
     fin = np.isfinite(ls) & (ls >= lo) & (ls <= hi)
     if not fin.any():
         return None
-    hist = _peaks_1d(ls[fin], t_i[fin], settings.log_scale_bin, lo, hi, circular=False)
+    by = fin
+    if not settings.text_scale:
+        shaped = fin & (tmpl.classes[t_i] != TEXT)
+        by = shaped if shaped.sum() >= 10 else fin
+    hist = _peaks_1d(ls[by], t_i[by], settings.log_scale_bin, lo, hi, circular=False)
     smooth = hist + 0.5 * (np.roll(hist, 1) + np.roll(hist, -1))
     b = int(np.argmax(smooth))
     centre = lo + (b + 0.5) * settings.log_scale_bin
-    near = fin & (np.abs(ls - centre) <= 1.5 * settings.log_scale_bin)
+    near = by & (np.abs(ls - centre) <= 1.5 * settings.log_scale_bin)
     log_s = float(np.median(ls[near]))
     # Per-axis scales from boxes in the peak (template axes; after an odd turn they swap).
     boxy = near & ~is_line & (tmpl.classes[t_i] != TEXT)

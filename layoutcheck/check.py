@@ -353,6 +353,8 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
 
 #: Most resolution at which a photo is read a second time, in its template's frame (dpi).
 SECOND_READING_DPI = 300.0
+#: Scales considered in the second reading (see :func:`read_again`).
+SECOND_READING_SCALES = (0.6, 1.6)
 
 
 def second_reading(templates, page, capture, found, template, tp, match, settings):
@@ -392,8 +394,9 @@ def read_again(page: RasterPage, capture, found: PageElements, tp: TemplatePage,
     dpi = float(min(SECOND_READING_DPI, page.dpi * np.sqrt(centre[0] * centre[1])))
     second = in_template_frame(page, pose, (tp.width, tp.height), dpi)
     found2 = extract(second.page)
-    # The form now lies at scale 1 within a few percent: only scales near it are considered.
-    near = replace(settings, solver=replace(settings.solver, scale_range=(0.9, 1.1)))
+    # The form now lies at scale 1 within a few percent: only scales near it vote, while an
+    # element shrunk or grown by a third still pairs with its place (and is found resized).
+    near = replace(settings, solver=replace(settings.solver, scale_range=SECOND_READING_SCALES))
     match2 = match_page(tp, found2, near)
     if match2.pose is None or match2.support < match.support:
         return capture, found, match

@@ -255,12 +255,14 @@ def simulate_photo(source_pdf: str | os.PathLike, settings: CameraSettings = Cam
     rendered, _ = render_page(source_pdf, st.page, rdpi)
     k = rdpi / POINTS_PER_INCH
     tamper = None
-    if st.tamper:
-        if st.tamper not in TAMPERS:
-            raise ValueError(f"unknown tamper {st.tamper!r}: use one of {', '.join(TAMPERS)}")
-        rendered, tamper = _tamper(rendered, _page_boxes(source_pdf, st.page), st.tamper, k, rng)
+    if st.tamper and st.tamper not in TAMPERS:
+        raise ValueError(f"unknown tamper {st.tamper!r}: use one of {', '.join(TAMPERS)}")
     if st.fill:
         rendered = _draw_fill(rendered, source_pdf, st.page, rdpi, rng)
+    if st.tamper:
+        # After the filling in: what is written in the box goes with it (the form was printed
+        # that way and filled in as printed).
+        rendered, tamper = _tamper(rendered, _page_boxes(source_pdf, st.page), st.tamper, k, rng)
     rendered = cv2.GaussianBlur(rendered, (0, 0), 0.6)
     # Photo pixel -> template point (inverse homography, then the bend) -> render pixel, by rows.
     # The sheet curls along its x axis (lifted in the middle, flat at its left and right edges);

@@ -346,15 +346,30 @@ def _fit_projective(src: np.ndarray, dst: np.ndarray, w: np.ndarray, anchor: np.
     h = vt[-1].reshape(3, 3)
     sw = np.sqrt(w)
 
-    def resid(p):
+    def mapped(p):
         hm = np.append(p, 1.0).reshape(3, 3)
         den = s @ hm[2, :2] + 1.0
-        out = (s @ hm[:2, :2].T + hm[:2, 2]) / den[:, None] - d
-        return (out * sw[:, None]).ravel()
+        return (s @ hm[:2, :2].T + hm[:2, 2]) / den[:, None], den
+
+    def resid(p):
+        u, _ = mapped(p)
+        return ((u - d) * sw[:, None]).ravel()
+
+    def jac(p):
+        # d(u)/d(h00, h01, h02) = (x, y, 1) / den; d(u)/d(h20, h21) = -u (x, y) / den; alike for v.
+        u, den = mapped(p)
+        x, y = s[:, 0], s[:, 1]
+        k = sw / den
+        j = np.zeros((n, 2, 8))
+        j[:, 0, 0], j[:, 0, 1], j[:, 0, 2] = x * k, y * k, k
+        j[:, 1, 3], j[:, 1, 4], j[:, 1, 5] = x * k, y * k, k
+        j[:, :, 6] = -u * (x * k)[:, None]
+        j[:, :, 7] = -u * (y * k)[:, None]
+        return j.reshape(2 * n, 8)
 
     if abs(h[2, 2]) > 1e-12 and n > 4:
         h = h / h[2, 2]
-        fit = least_squares(resid, h.ravel()[:8], method="lm", xtol=1e-14, ftol=1e-14)
+        fit = least_squares(resid, h.ravel()[:8], jac=jac, method="lm", xtol=1e-14, ftol=1e-14)
         h = np.append(fit.x, 1.0).reshape(3, 3)
     m = np.linalg.inv(td) @ h @ ts
     if not np.all(np.isfinite(m)) or abs(m[2, 2]) < 1e-300:

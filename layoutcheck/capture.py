@@ -48,6 +48,8 @@ SHEET_SEARCH_PX = 512
 #: Paper is brighter than this share of the light surface fitted to it (log difference); the
 #: desk is at most 60 % as bright (log -0.51), see :mod:`layoutcheck.simulate_camera`.
 PAPER_LOG_MARGIN = -0.25
+#: Finest resolution of a photo's first reading, dpi (see :func:`prepare`).
+FIRST_READING_DPI = 200.0
 #: White margin painted around the flattened sheet, mm: slivers of desk at the sheet's edge must
 #: not become elements, and a printed form keeps at least 5 mm clear (common practice).
 EDGE_MARGIN_MM = 2.0
@@ -283,15 +285,28 @@ def prepare(page: RasterPage, camera: bool) -> Capture:
     if sheet is None:
         flat = flatten_light(grey, dpi)
         return Capture("camera", RasterPage(page.source, page.page, flat, dpi, False), Pose.identity())
-    image, out_to_in = rectify(grey, sheet)
+    found_sheet = sheet
     # The sheet's own size gives the working resolution (the image's may hold much desk).
     flat_dpi = dpi if page.dpi_stated else working_dpi(grey.shape, sheet)
+    # The first reading only has to find the form and its pose (the second one, in the
+    # template's frame, places it finely): a photo finer than FIRST_READING_DPI is reduced first.
+    k = min(1.0, FIRST_READING_DPI / flat_dpi)
+    if k < 0.9:
+        h, w = grey.shape
+        rw, rh = max(16, int(round(w * k))), max(16, int(round(h * k)))
+        grey = cv2.resize(grey, (rw, rh), interpolation=cv2.INTER_AREA)
+        sx, sy = rw / w, rh / h
+        sheet = sheet * np.array([sx, sy])
+        flat_dpi *= (sx + sy) / 2.0
+    else:
+        sx = sy = 1.0
+    image, out_to_in = rectify(grey, sheet)
     flat = flatten_light(image, flat_dpi)
     margin = max(1, int(round(EDGE_MARGIN_MM * flat_dpi / 25.4)))
     flat[:margin], flat[-margin:], flat[:, :margin], flat[:, -margin:] = 255, 255, 255, 255
-    # Flat page points -> flat px -> input px -> input points: one projective pose.
-    to_input = Pose(np.linalg.inv(_px_scale(dpi)) @ out_to_in @ _px_scale(flat_dpi))
-    return Capture("camera", RasterPage(page.source, page.page, flat, flat_dpi, False), to_input, sheet)
+    # Flat page points -> flat px -> (reduced) input px -> input px -> input points: one pose.
+    to_input = Pose(np.linalg.inv(_px_scale(dpi)) @ np.diag([1 / sx, 1 / sy, 1.0]) @ out_to_in @ _px_scale(flat_dpi))
+    return Capture("camera", RasterPage(page.source, page.page, flat, flat_dpi, False), to_input, found_sheet)
 
 
 @dataclass(frozen=True)

@@ -352,7 +352,7 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
 
 
 #: Most resolution at which a photo is read a second time, in its template's frame (dpi).
-SECOND_READING_DPI = 300.0
+SECOND_READING_DPI = 250.0
 #: Scales considered in the second reading (see :func:`read_again`).
 SECOND_READING_SCALES = (0.6, 1.6)
 

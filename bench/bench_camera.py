@@ -321,6 +321,8 @@ def report() -> str:
 
     named_ok = [r for r in tampered if named(r)]
     only = [r for r in named_ok if len(r["offending"]) == 1]
+    readable = [r for r in tampered if (r.get("effective_dpi") or {}).get("worst", 0) >= 150]
+    readable_ok = [r for r in readable if named(r)]
     corners = np.concatenate([r["corner_px"] for r in rows if r.get("corner_px") and r["template"] == r["form"]])
     flat_c = np.concatenate([r["corner_px"] for r in rows if r.get("corner_px") and r["template"] == r["form"] and r["bend_mm"] < 0.3] or [np.zeros(0)])
     rev = [r["reverify"] for r in rows if r.get("reverify") and r["reverify"].get("ok")]
@@ -338,6 +340,7 @@ def report() -> str:
               "| measure | result | target |", "|---|---|---|",
               f"| intact: right template page and nothing offending | {len(right)} of {len(intact)} ({len(right) / max(len(intact), 1):.1%}) | >= 98 % |",
               f"| tampered: the box named with its status | {len(named_ok)} of {len(tampered)} ({len(named_ok) / max(len(tampered), 1):.1%}); named alone {len(only)} | >= 98 % |",
+              f"| same, photos showing the whole form at >= 150 dpi | {len(readable_ok)} of {len(readable)} ({len(readable_ok) / max(len(readable), 1):.1%}) | |",
               f"| homography corner error, photo px (all photos recognised, {len(corners) // 4}) | median {np.median(corners):.2f}, 95th pct {np.percentile(corners, 95):.2f}, max {corners.max():.2f} | median <= 1, max <= 4 |",
               (f"| same, photos bent under 0.3 mm ({len(flat_c) // 4}) | median {np.median(flat_c):.2f}, max {flat_c.max():.2f} | |" if len(flat_c) else "| same, bent under 0.3 mm | none | |"),
               f"| normalised photo re-verified as a scan ({len(rev)}) | turn max {max((v['turn'] for v in rev), default=float('nan')):.3f} deg, "

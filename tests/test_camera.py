@@ -51,6 +51,7 @@ def photo_px_pose(rec, path) -> Pose:
     return Pose(np.diag([k, k, 1.0]) @ np.array(rec["pose"]["projective"]))
 
 
+@pytest.mark.slow
 def test_photo_of_the_form_passes_as_a_camera_capture(setup):
     d, _, _, photo = setup
     path = d / "photo.jpg"
@@ -70,6 +71,7 @@ def test_photo_of_the_form_passes_as_a_camera_capture(setup):
     assert rec["offending"] == []
 
 
+@pytest.mark.slow
 def test_photo_with_a_moved_box_names_it(setup):
     d, _, moved, _ = setup
     photo = simulate_photo(moved, CameraSettings(size=(2592, 1944), seed=22, bend_mm=0.4))
@@ -81,6 +83,7 @@ def test_photo_with_a_moved_box_names_it(setup):
     assert off[0] == pytest.approx(11.0, abs=0.5) and abs(off[1]) < 0.5  # as drawn
 
 
+@pytest.mark.slow
 def test_photo_far_too_small_is_to_be_taken_again(setup):
     d, ref, _, _ = setup
     photo = simulate_photo(ref, CameraSettings(size=(1600, 1200), fill_frame=0.7, seed=23))
@@ -94,6 +97,7 @@ def test_photo_far_too_small_is_to_be_taken_again(setup):
     assert again["verdict"] != "retake"
 
 
+@pytest.mark.slow
 def test_normalised_photo_reverifies_as_a_flat_scan_and_zones_follow_the_perspective(setup):
     d, _, _, photo = setup
     out = d / "norm"
@@ -114,6 +118,7 @@ def test_normalised_photo_reverifies_as_a_flat_scan_and_zones_follow_the_perspec
         assert np.abs(np.array(z["quad"]) - want.reshape(-1, 2)).max() < 3.0, z["name"]
 
 
+@pytest.mark.slow
 def test_learn_from_a_photo_and_refuse_a_small_one(setup, tmp_path):
     d, ref, _, _ = setup
     good = simulate_photo(ref, CameraSettings(size=(3264, 2448), seed=24, fill=False, bend_mm=0.0))
@@ -130,6 +135,7 @@ def test_learn_from_a_photo_and_refuse_a_small_one(setup, tmp_path):
     assert "(at least 150 needed)" in res.output
 
 
+@pytest.mark.slow
 def test_sheet_is_found_where_the_truth_puts_its_corners(setup):
     d, _, _, photo = setup
     (page,) = list(read_pages(d / "photo.jpg"))

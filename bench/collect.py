@@ -10,6 +10,8 @@ fixed order, under a short preface. Run it after the benchmarks:
       && python bench/bench_identify.py --part 1/3 && python bench/bench_identify.py --part 2/3 \\
       && python bench/bench_identify.py --part 3/3 && python bench/bench_identify.py --report \\
       && python bench/collect.py
+
+The camera benchmark runs in parts (see ``bench/bench_camera.py``) before ``collect.py``.
 """
 
 from __future__ import annotations
@@ -27,6 +29,7 @@ ORDER = (
     ("batch", "Batches: throughput, choosing among 50 templates, memory"),
     ("watch", "Watched inbox: throughput against verify"),
     ("identify", "Identification among look-alike forms: 100 and 1,000 templates, revisions, start-up, memory"),
+    ("camera", "Camera captures: photos end to end, homography against findHomography"),
 )
 PREFACE = """# Benchmarks
 

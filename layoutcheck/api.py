@@ -31,7 +31,7 @@ from .check import (CheckSettings, alike_templates, check_page as _check_page, h
                     learning_summary, parse_pages, sample_files, update as _update)
 from .index import TemplateIndex, as_index
 from .report import write_report
-from .sources import ReadLimits, RasterPage, image_page, open_document, record_path, snap_dpi
+from .sources import ReadLimits, RasterPage, image_page, open_document, record_path
 from .summary import counts_line, summary_table
 from .template import LearnError, Template, TemplateError, load_template, save_template
 from .verdict import SEVERITY, VERDICTS, Tolerances
@@ -278,19 +278,20 @@ def open_template_index(paths: Sequence[str | os.PathLike]) -> TemplateIndex:
 def learn(references: str | os.PathLike | Sequence[str | os.PathLike], *, name: str | None = None,
           pages: str | set[int] | None = None, dpi: float | None = None, password: str | None = None,
           section_names: dict[str, str] | None = None, zones: str | os.PathLike | None = None,
-          form: str | None = None, revision: str | None = None) -> Template:
+          form: str | None = None, revision: str | None = None, min_dpi: float = Tolerances.min_dpi) -> Template:
     """Learn a template from a reference (a blank PDF or a clean scan) or several good samples.
 
     ``pages`` is ``"1,3-4"`` or a set of 1-based page numbers (default: all); ``dpi`` is assumed
     for reference scans that state none; ``section_names`` maps found section ids to names;
     ``zones`` is a zones JSON file; ``form`` and ``revision`` declare the template a revision of
-    a form (``form`` defaults to the template's name). Raises :class:`LearnError` naming the
-    file and page.
+    a form (``form`` defaults to the template's name); ``min_dpi`` is the least effective
+    resolution anywhere on a photographed reference. Raises :class:`LearnError` naming the file
+    and page.
     """
     refs = [references] if isinstance(references, (str, os.PathLike)) else list(references)
     wanted = parse_pages(pages) if isinstance(pages, str) else pages
     template = _learn(sample_files([str(r) for r in refs]), name=name, pages=wanted,
-                      limits=ReadLimits(dpi=dpi, password=password), section_names=section_names)
+                      limits=ReadLimits(dpi=dpi, password=password), section_names=section_names, min_dpi=min_dpi)
     if form or revision:
         template = dataclasses.replace(template, form=form or template.form or template.name,
                                        revision=revision or template.revision)
@@ -351,8 +352,9 @@ def check_page(image: PageInput, templates: TemplatesInput, *, page: int = 1, dp
     dpi : float, optional
         Resolution of the image. For files, bytes and Pillow images it is used only when the
         image states none (as ``verify --dpi``). None for an array (or an image stating none):
-        a camera capture; the resolution is then measured from the form (see
-        :mod:`layoutcheck.capture`) and given in the record as ``measured_dpi``.
+        a camera capture: the sheet is found, its perspective and light corrected, and the
+        effective resolution measured from the form (``capture`` and ``effective_dpi`` in the
+        record; see :mod:`layoutcheck.capture`).
     source : str, optional
         Name of an in-memory page in the record and in messages (default ``"image"``); a path
         names itself, made absolute as in every record.
@@ -387,39 +389,12 @@ def _check_document(name: str, templates, settings, limits, page: int, data: byt
     from .check import error_record
     from .sources import PageError, where
 
-    if limits.dpi is None:
-        frame = _frame_without_dpi(name, data, page)
-        if frame is not None:  # an image stating no resolution, and none given: a camera capture
-            return _check_picture(frame, name, page, None, templates, settings, limits)
     with open_document(name, limits, {page}, data=data) as doc:
         if page not in doc.plan:
             errors = [e for e in doc.plan if isinstance(e, PageError)]
             e = errors[0] if errors else PageError(name, page, f"{where(name, page)}: no such page")
             return error_record(name, e.page, e.message)
         return _check_page(doc.page(page), templates, settings)
-
-
-def _frame_without_dpi(name: str, data: bytes | None, page: int):
-    """Frame ``page`` of an image file that states no usable resolution; None otherwise."""
-    import io
-
-    from PIL import Image
-
-    try:
-        with open(name, "rb") if data is None else io.BytesIO(data) as fh:
-            head = fh.read(8)
-            if head.startswith(b"%PDF"):
-                return None
-            fh.seek(0)
-            img = Image.open(fh)
-            img.seek(page - 1)
-            stated = img.info.get("dpi")
-            if stated and snap_dpi(float(stated[0])):
-                return None
-            img.load()
-            return img
-    except Exception:  # unreadable here: the reader proper gives the error record
-        return None
 
 
 def _check_picture(image, name: str, page: int, dpi: float | None, templates, settings, limits) -> dict:
@@ -430,25 +405,9 @@ def _check_picture(image, name: str, page: int, dpi: float | None, templates, se
         image = _array_image(image, name)
     if not isinstance(image, Image.Image):
         raise TypeError(f"{name}: a page is a path, bytes, a PIL image or a numpy array, not {type(image).__name__}")
-    stated = image.info.get("dpi")
-    measure = dpi is None and limits.dpi is None and not (stated and snap_dpi(float(stated[0])))
-    # A nominal dpi lets the image be read as a scan is; the real one is measured below.
-    pg = image_page(name, page, image, dataclasses.replace(limits, dpi=1.0) if measure else limits)
-    if measure and isinstance(pg, RasterPage):
-        from .capture import measure_dpi
-
-        measured = measure_dpi(pg.image, templates, settings, name, page)
-        if measured is None:
-            import time
-
-            from .check import unrecognised_record
-
-            return unrecognised_record(name, page, "Not a form: no template's form was found on the picture, "
-                                       "so its resolution could not be measured", time.perf_counter())
-        pg = RasterPage(name, page, pg.image, measured, pg.bitonal)
-        rec = _check_page(pg, templates, settings)
-        rec["measured_dpi"] = round(measured, 1)
-        return rec
+    # A resolution given here stands where the image states none; with none at all the page is
+    # a camera capture, whose scale is measured from the form (see :mod:`layoutcheck.capture`).
+    pg = image_page(name, page, image, dataclasses.replace(limits, dpi=dpi) if dpi else limits)
     return _check_page(pg, templates, settings)
 
 

@@ -1,51 +1,358 @@
-"""Pages whose resolution is not known (a camera capture): the dpi is measured from the form.
+"""Camera captures: the sheet found on the desk, seen flat and evenly lit, before extraction.
 
-A photograph of a sheet has no dpi of its own. The page is read once at a nominal resolution
-that makes the image's longer side as long as the longest template page; the pose found then
-says how much larger or smaller the form appears than it should, and that ratio corrects the
-nominal dpi. The page is then checked at the measured dpi like any scan.
+A photographed form lies on a desk, seen in perspective and lit unevenly. Before the raster
+extractor reads it, this module
+
+1. finds the sheet: on the photo reduced to about 2 mm per pixel, print is closed away (a grey
+   closing), the paper's light is modelled as a smooth surface (a cubic in x and y, fitted in
+   log-brightness to the pixels taken as paper, three rounds), and paper is what lies close
+   under that surface; the desk, at most 60 % as bright as the paper under the same light, is
+   not. The outline of the largest paper region is simplified to four corners and each side is
+   refitted as a straight line (``cv2.fitLine``);
+2. maps the sheet to an upright rectangle (``cv2.getPerspectiveTransform``,
+   ``cv2.warpPerspective``), at about the photo's own resolution;
+3. flattens the light: each pixel is divided by the paper's brightness around it (a grey
+   closing over 6 mm, smoothed), so light falling off by a third towards the corners and a soft
+   shadow leave an even page that a global threshold reads.
+
+The result is a :class:`~layoutcheck.sources.RasterPage` the extractor reads like a scan, and the
+pose from its points to the input page's points (projective), which the match is composed with,
+so every caller sees one pose from template to input.
+
+A page states no usable resolution when its file gives none, or one at which the image would be a
+sheet larger than :data:`MAX_SHEET_IN` (phones write 72 dpi into a 12-megapixel photo: a sheet of
+55 inches). Such a page is given a working resolution, :func:`working_dpi`, from the size of the
+sheet found on it; the scale is measured from the form itself afterwards.
 """
 
 from __future__ import annotations
 
-from typing import Sequence
+from dataclasses import dataclass
 
+import cv2
 import numpy as np
 
-from .check import CheckSettings, best_match, extract
 from .elements import POINTS_PER_INCH
-from .sources import RasterPage
-from .template import Template
+from .pose import Pose
+from .sources import ASSUMED_LONG_SIDE_IN, MAX_SHEET_IN, RasterPage, working_dpi  # noqa: F401  (part of this module's face)
+
+#: Side of the reduced photo on which the sheet is sought, pixels (about 2 mm per pixel).
+SHEET_SEARCH_PX = 512
+#: Paper is brighter than this share of the light surface fitted to it (log difference); the
+#: desk is at most 60 % as bright (log -0.51), see :mod:`layoutcheck.simulate_camera`.
+PAPER_LOG_MARGIN = -0.25
+#: Finest resolution of a photo's first reading, dpi (see :func:`prepare`).
+FIRST_READING_DPI = 200.0
+#: White margin painted around the flattened sheet, mm: slivers of desk at the sheet's edge must
+#: not become elements, and a printed form keeps at least 5 mm clear (common practice).
+EDGE_MARGIN_MM = 2.0
 
 
-def nominal_dpi(shape: tuple[int, ...], templates: Sequence[Template]) -> float:
-    """Resolution at which the image's longer side spans the longest side of any template page."""
-    longest_pt = max(max(p.width, p.height) for t in templates for p in t.pages)
-    return max(shape[0], shape[1]) * POINTS_PER_INCH / longest_pt
+@dataclass(frozen=True)
+class Capture:
+    """What the extractor reads for one input page, and how it lies on the input.
 
-
-def measure_dpi(image: np.ndarray, templates: Sequence[Template], settings: CheckSettings = CheckSettings(),
-                source: str = "image", page: int = 1) -> float | None:
-    """The resolution at which the form on ``image`` has its template's size, or None.
-
-    Parameters
+    Attributes
     ----------
-    image : (H, W) uint8 array
-        Grey page, 0 black .. 255 white.
-    templates : sequence of Template
-        Forms the page may be.
+    kind : str
+        ``"camera"`` or ``"scan"``.
+    page : RasterPage
+        The page the extractor reads: for a camera capture the sheet, upright and evenly lit.
+    to_input : Pose
+        Points of :attr:`page` -> points of the input page (identity for a scan).
+    sheet_px : (4, 2) array or None
+        Corners of the sheet found on the input, pixels (top-left, top-right, bottom-right,
+        bottom-left as seen), or None when no sheet was told from its surroundings.
+    """
+
+    kind: str
+    page: RasterPage
+    to_input: Pose
+    sheet_px: np.ndarray | None = None
+
+
+def stated_dpi_usable(dpi: float | None, shape: tuple[int, int]) -> bool:
+    """Whether a stated resolution can be the page's: stated, and the sheet it implies not huge."""
+    if dpi is None or not np.isfinite(dpi) or dpi <= 0:
+        return False
+    return max(shape) / dpi <= MAX_SHEET_IN
+
+
+def _poly_terms(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Monomials of a cubic in x and y (10 columns)."""
+    return np.column_stack([np.ones_like(x), x, y, x * x, x * y, y * y, x**3, x * x * y, x * y * y, y**3])
+
+
+def paper_mask(grey: np.ndarray) -> np.ndarray:
+    """Paper pixels of a small grey photo (print closed away first), as a bool mask.
+
+    The light on the paper is a smooth surface: a cubic in x and y fitted, in log-brightness, to
+    the pixels taken as paper (at first those above Otsu's threshold), three rounds; paper is
+    what lies within :data:`PAPER_LOG_MARGIN` of it.
+    """
+    h, w = grey.shape
+    k = max(3, int(round(max(h, w) / 100)) | 1)  # about 5 mm: wider than any stroke of print
+    closed = cv2.morphologyEx(grey, cv2.MORPH_CLOSE, cv2.getStructuringElement(cv2.MORPH_RECT, (k, k)))
+    lg = np.log1p(closed.astype(np.float32))
+    t, _ = cv2.threshold(closed, 0, 255, cv2.THRESH_BINARY | cv2.THRESH_OTSU)
+    mask = closed > t
+    yy, xx = np.mgrid[0:h, 0:w]
+    xn, yn = (xx.ravel() / w - 0.5), (yy.ravel() / h - 0.5)
+    terms = _poly_terms(xn, yn)
+    for _ in range(3):
+        inner = cv2.erode(mask.view(np.uint8), np.ones((5, 5), np.uint8)).view(bool)
+        sel = np.flatnonzero(inner.ravel())
+        if len(sel) < 50:
+            break
+        sel = sel[:: max(1, len(sel) // 20000)]
+        coef, *_ = np.linalg.lstsq(terms[sel], lg.ravel()[sel], rcond=None)
+        surface = (terms @ coef).reshape(h, w)
+        mask = lg > surface + PAPER_LOG_MARGIN
+    return mask
+
+
+def _order_corners(q: np.ndarray) -> np.ndarray:
+    """Four corners as top-left, top-right, bottom-right, bottom-left (as seen)."""
+    c = q.mean(axis=0)
+    ang = np.arctan2(q[:, 1] - c[1], q[:, 0] - c[0])
+    q = q[np.argsort(ang)]  # clockwise on screen (y down), starting anywhere
+    start = int(np.argmin(q.sum(axis=1)))
+    return np.roll(q, -start, axis=0)
+
+
+def find_sheet(grey: np.ndarray) -> np.ndarray | None:
+    """Corners of the sheet on a grey photo, pixels (continuous), or None.
+
+    None when no bright four-sided region covering at least a fifth of the photo is told from
+    its surroundings, or when the sheet runs off the photo (its outline then is not the sheet's).
 
     Returns
     -------
-    float or None
-        ``nominal * scale`` where ``scale`` is the pose's overall scale (content size on the input
-        over its size on the template) at the nominal dpi; None when no form was found.
+    (4, 2) array or None
+        Top-left, top-right, bottom-right, bottom-left as seen.
     """
-    nominal = nominal_dpi(image.shape, templates)
-    found = extract(RasterPage(source, page, image, nominal))
-    if not found.elements:
+    h, w = grey.shape
+    f = max(h, w) / SHEET_SEARCH_PX
+    sw, sh = max(8, int(round(w / f))), max(8, int(round(h / f)))
+    small = cv2.resize(grey, (sw, sh), interpolation=cv2.INTER_AREA)
+    mask = paper_mask(small)
+    # Bright streaks of desk grain may touch the sheet: an opening over 3 % of the photo cuts
+    # them off (the sheet is far wider).
+    # them off (the sheet is far wider); the outline is then taken from the mask itself near the
+    # opened sheet, so the sheet's corners stay sharp.
+    k = max(3, int(round(0.03 * max(sw, sh))) | 1)
+    kernel = cv2.getStructuringElement(cv2.MORPH_RECT, (k, k))
+    opened = cv2.morphologyEx(mask.view(np.uint8), cv2.MORPH_OPEN, kernel)
+    n, labels, stats, _ = cv2.connectedComponentsWithStats(opened, connectivity=4)
+    if n <= 1:
         return None
-    _, _, match = best_match(templates, found, settings)
-    if match is None or match.pose is None:
+    j = 1 + int(np.argmax(stats[1:, cv2.CC_STAT_AREA]))
+    if stats[j, cv2.CC_STAT_AREA] < 0.2 * sw * sh:
         return None
-    return float(nominal * match.pose.scale)
+    near = cv2.dilate((labels == j).astype(np.uint8), cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (k, k)))
+    n, labels, stats, _ = cv2.connectedComponentsWithStats(near & mask.view(np.uint8), connectivity=4)
+    j = 1 + int(np.argmax(stats[1:, cv2.CC_STAT_AREA]))
+    region = (labels == j).astype(np.uint8)
+    # A sheet that runs off the photo touches the border along a long stretch.
+    border = np.concatenate([region[0], region[-1], region[:, 0], region[:, -1]])
+    if border.sum() > 0.1 * (sw + sh):
+        return None
+    contours, _ = cv2.findContours(region, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_NONE)
+    outline = max(contours, key=cv2.contourArea)
+    hull = cv2.convexHull(outline)
+    peri = cv2.arcLength(hull, True)
+    quad = None
+    for eps in (0.01, 0.02, 0.03, 0.05, 0.08):
+        approx = cv2.approxPolyDP(hull, eps * peri, True)
+        if len(approx) == 4:
+            quad = approx.reshape(4, 2).astype(float)
+            break
+    if quad is None:
+        return None
+    quad = _order_corners(quad)
+    # Each side refitted on the outline points near it (away from the corners), then the
+    # corners are where neighbouring sides meet.
+    pts = outline.reshape(-1, 2).astype(np.float32)
+    lines = []
+    for i in range(4):
+        a, b = quad[i], quad[(i + 1) % 4]
+        d = b - a
+        length = float(np.hypot(*d))
+        u = d / length
+        rel = pts - a
+        along = rel @ u
+        across = np.abs(rel[:, 0] * u[1] - rel[:, 1] * u[0])
+        near = (across < 3.0) & (along > 0.1 * length) & (along < 0.9 * length)
+        if near.sum() < 10:
+            return None
+        vx, vy, x0, y0 = cv2.fitLine(pts[near], cv2.DIST_HUBER, 0, 0.01, 0.01).ravel()
+        lines.append(np.cross([x0, y0, 1.0], [x0 + vx, y0 + vy, 1.0]))
+    corners = []
+    for i in range(4):
+        p = np.cross(lines[i - 1], lines[i])
+        if abs(p[2]) < 1e-9:
+            return None
+        corners.append(p[:2] / p[2])
+    # Contour points are pixel centres of the small image: continuous coordinate + 0.5.
+    out = (np.array(corners) + 0.5) * np.array([w / sw, h / sh])
+    if cv2.contourArea(out.astype(np.float32)) < 0.2 * w * h:
+        return None
+    return out
+
+
+def flatten_light(grey: np.ndarray, dpi: float) -> np.ndarray:
+    """Grey page with the paper's light made even: each pixel over the paper's brightness near it.
+
+    The paper's brightness is a grey closing over 6 mm (print is thinner) of the page reduced
+    to about 1 mm per pixel, smoothed and brought back to full size; paper comes out at 240.
+    """
+    h, w = grey.shape
+    f = max(1.0, dpi / 25.4)
+    sw, sh = max(4, int(round(w / f))), max(4, int(round(h / f)))
+    small = cv2.resize(grey, (sw, sh), interpolation=cv2.INTER_AREA)
+    bg = cv2.morphologyEx(small, cv2.MORPH_CLOSE, cv2.getStructuringElement(cv2.MORPH_RECT, (7, 7)))
+    bg = cv2.dilate(bg, np.ones((3, 3), np.uint8))
+    bg = cv2.GaussianBlur(bg.astype(np.float32), (0, 0), 2.0)
+    bg = cv2.resize(np.maximum(bg, 8.0), (w, h), interpolation=cv2.INTER_LINEAR)
+    out = cv2.divide(grey.astype(np.float32), bg, scale=240.0)
+    return np.clip(out, 0, 255).astype(np.uint8)
+
+
+def rectify(grey: np.ndarray, sheet_px: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The sheet mapped to an upright rectangle at about the photo's resolution.
+
+    The rectangle's sides are the means of the sheet's opposite sides: in perspective that
+    ratio is off the sheet's own by a few percent, which the match takes as a scale along one
+    axis (see :func:`layoutcheck.check.camera_settings`).
+
+    Returns ``(image, out_px_to_in_px)``: the rectified grey image and the 3 x 3 map from its
+    continuous pixels to the photo's.
+    """
+    q = np.asarray(sheet_px, float)
+    top, right, bottom, left = (np.hypot(*(q[(i + 1) % 4] - q[i])) for i in range(4))
+    ow, oh = int(round((top + bottom) / 2)), int(round((left + right) / 2))
+    dst = np.array([[0, 0], [ow, 0], [ow, oh], [0, oh]], dtype=np.float32)
+    # Continuous pixel maps; OpenCV samples at integer pixel centres, hence the half pixels.
+    m = cv2.getPerspectiveTransform(dst, q.astype(np.float32)).astype(float)
+    half = np.array([[1, 0, 0.5], [0, 1, 0.5], [0, 0, 1.0]])
+    cv_map = np.linalg.inv(half) @ m @ half
+    out = cv2.warpPerspective(grey, cv_map, (ow, oh), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
+                              borderMode=cv2.BORDER_REPLICATE)
+    return out, m
+
+
+def _px_scale(dpi: float) -> np.ndarray:
+    """3 x 3 map from points to continuous pixels at ``dpi``."""
+    k = dpi / POINTS_PER_INCH
+    return np.diag([k, k, 1.0])
+
+
+def prepare(page: RasterPage, camera: bool) -> Capture:
+    """The page the extractor reads, and how it lies on the input (see the module's notes).
+
+    Parameters
+    ----------
+    page : RasterPage
+        The input page (its ``dpi`` a working one when the file states none).
+    camera : bool
+        Whether the page is taken as a photo (its file states no usable resolution). A scan is
+        returned as it is.
+    """
+    if not camera:
+        return Capture("scan", page, Pose.identity())
+    grey = np.ascontiguousarray(page.image, dtype=np.uint8)
+    sheet = find_sheet(grey)
+    dpi = float(page.dpi)
+    if sheet is None:
+        flat = flatten_light(grey, dpi)
+        return Capture("camera", RasterPage(page.source, page.page, flat, dpi, False), Pose.identity())
+    found_sheet = sheet
+    # The sheet's own size gives the working resolution (the image's may hold much desk).
+    flat_dpi = dpi if page.dpi_stated else working_dpi(grey.shape, sheet)
+    # The first reading only has to find the form and its pose (the second one, in the
+    # template's frame, places it finely): a photo finer than FIRST_READING_DPI is reduced first.
+    k = min(1.0, FIRST_READING_DPI / flat_dpi)
+    if k < 0.9:
+        h, w = grey.shape
+        rw, rh = max(16, int(round(w * k))), max(16, int(round(h * k)))
+        grey = cv2.resize(grey, (rw, rh), interpolation=cv2.INTER_AREA)
+        sx, sy = rw / w, rh / h
+        sheet = sheet * np.array([sx, sy])
+        flat_dpi *= (sx + sy) / 2.0
+    else:
+        sx = sy = 1.0
+    image, out_to_in = rectify(grey, sheet)
+    flat = flatten_light(image, flat_dpi)
+    margin = max(1, int(round(EDGE_MARGIN_MM * flat_dpi / 25.4)))
+    flat[:margin], flat[-margin:], flat[:, :margin], flat[:, -margin:] = 255, 255, 255, 255
+    # Flat page points -> flat px -> (reduced) input px -> input px -> input points: one pose.
+    to_input = Pose(np.linalg.inv(_px_scale(dpi)) @ np.diag([1 / sx, 1 / sy, 1.0]) @ out_to_in @ _px_scale(flat_dpi))
+    return Capture("camera", RasterPage(page.source, page.page, flat, flat_dpi, False), to_input, found_sheet)
+
+
+@dataclass(frozen=True)
+class Readability:
+    """How finely a camera capture shows its form, measured from the pose (template -> input).
+
+    Attributes
+    ----------
+    centre_dpi : float
+        Input pixels per template inch at the template page's centre (the geometric mean of
+        the two local stretches).
+    worst_dpi : float
+        The least: along the direction shrunk most, at the point of the page where it is least.
+    worst_at : (x, y)
+        That point, template points.
+    stretch : float
+        How much more the correction must enlarge the least resolved part of the page than the
+        best resolved one (largest local stretch over the page / smallest).
+    """
+
+    centre_dpi: float
+    worst_dpi: float
+    worst_at: tuple[float, float]
+    stretch: float
+
+    def to_dict(self) -> dict:
+        from .elements import MM_PER_POINT
+
+        return {"centre": round(self.centre_dpi, 1), "worst": round(self.worst_dpi, 1),
+                "worst_at_mm": [round(v * MM_PER_POINT, 1) for v in self.worst_at],
+                "stretch": round(self.stretch, 3)}
+
+
+def readability(pose: Pose, template_size: tuple[float, float], input_dpi: float, n: int = 9) -> Readability:
+    """Effective resolution of the form on the input, at its centre and at its worst point.
+
+    ``pose`` maps template points to input points at ``input_dpi`` (the file's or the working
+    one: it cancels out); the local stretches are the singular values of the pose's Jacobian on
+    an ``n`` x ``n`` grid over the template page.
+    """
+    w, h = template_size
+    gx, gy = np.meshgrid(np.linspace(0, w, n), np.linspace(0, h, n))
+    grid = np.column_stack([gx.ravel(), gy.ravel()])
+    sv = pose.local_scales(grid) * input_dpi  # input px per template inch, least and most
+    centre = pose.local_scales(np.array([[w / 2, h / 2]]))[0] * input_dpi
+    k = int(np.argmin(sv[:, 0]))
+    return Readability(float(np.sqrt(centre[0] * centre[1])), float(sv[k, 0]), (float(grid[k, 0]), float(grid[k, 1])),
+                       float(sv[:, 1].max() / max(sv[:, 0].min(), 1e-9)))
+
+
+def in_template_frame(page: RasterPage, pose: Pose, size_pt: tuple[float, float], dpi: float) -> Capture:
+    """The input photo seen in the template's frame through a first pose: a second reading.
+
+    ``pose`` maps template points to the input's points. The photo is resampled
+    (``cv2.warpPerspective``) onto the template page at ``dpi`` and its light flattened, so the
+    extractor reads the form as a flat scan with the perspective removed (rules upright and
+    square to each other, whatever the sheet's outline gave); the capture's pose to the input is
+    ``pose`` itself.
+    """
+    from .normalise import output_size, output_to_input_px, resample
+
+    m = output_to_input_px(pose, float(page.dpi), dpi)
+    size = output_size(size_pt, dpi)
+    image = resample(np.ascontiguousarray(page.image, dtype=np.uint8), m, size, interpolation="linear")
+    flat = flatten_light(image, dpi)
+    margin = max(1, int(round(EDGE_MARGIN_MM * dpi / 25.4)))
+    flat[:margin], flat[-margin:], flat[:, :margin], flat[:, -margin:] = 255, 255, 255, 255
+    return Capture("camera", RasterPage(page.source, page.page, flat, dpi, False), pose, None)

@@ -19,9 +19,9 @@ import numpy as np
 from .consensus import Match, SolverSettings, solve
 from .elements import MM_PER_POINT, Element, PageElements
 from .identify import IdentifySettings
-from .sources import PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page, where
+from .sources import USUAL_DPI, PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page, where
 from .template import LearnError, Template, TemplatePage, template_page, with_raster_sections
-from .verdict import SEVERITY, Finding, Tolerances, judge, offending, people_first
+from .verdict import SEVERITY, Finding, Tolerances, judge, offending, people_first, too_small
 
 #: Resolution at which a born-digital reference is rendered to learn how scans of it look
 #: (200 dpi: common practice for office scans; the raster extractor works in mm, so scans at
@@ -66,12 +66,15 @@ def parse_pages(spec: str | None) -> set[int] | None:
     return out
 
 
-def reference_pages(path: str, limits: ReadLimits, pages: set[int] | None, with_raster: bool = True):
+def reference_pages(path: str, limits: ReadLimits, pages: set[int] | None, with_raster: bool = True,
+                    min_dpi: float = Tolerances.min_dpi):
     """``(page, vector elements or None, raster elements or None)`` per page of a reference.
 
     A born-digital page is also rendered and read as a scan would be (at
     :data:`REFERENCE_RENDER_DPI`), so scans of the form have elements of their own kind to match.
-    Raises :class:`LearnError` for a page that cannot be read.
+    A photographed reference (no usable resolution stated) is read as its sheet, found on the
+    desk, upright and evenly lit (:mod:`layoutcheck.capture`); it must show every part of the
+    sheet at ``min_dpi`` at least. Raises :class:`LearnError` for a page that cannot be read.
     """
     for page in read_pages(path, limits, pages):
         if isinstance(page, PageError):
@@ -85,6 +88,16 @@ def reference_pages(path: str, limits: ReadLimits, pages: set[int] | None, with_
                     raise LearnError(rendered.message)
                 ras = extract(rendered)
             yield page, vec, ras
+        elif not page.dpi_stated:
+            from .capture import prepare, readability
+
+            cap = prepare(page, camera=True)
+            flat = cap.page
+            read = readability(cap.to_input, (flat.width, flat.height), page.dpi)
+            if read.worst_dpi < min_dpi:
+                raise LearnError(f"{where(path, page.page)}: photo too small to learn from: parts of the sheet are at "
+                                 f"{read.worst_dpi:.0f} dpi (at least {min_dpi:g} needed); photograph it closer")
+            yield flat, None, extract(flat)
         else:
             yield page, None, extract(page)
 
@@ -110,7 +123,7 @@ def sample_files(paths: Sequence[str]) -> list[str]:
 
 def learn(references: Sequence[str], name: str | None = None, pages: set[int] | None = None,
           limits: ReadLimits = ReadLimits(), section_names: dict[str, str] | None = None,
-          with_raster: bool = True) -> Template:
+          with_raster: bool = True, min_dpi: float = Tolerances.min_dpi) -> Template:
     """Learn a template from one reference (a blank PDF or a clean scan; every page of it).
 
     Several references are taken as good samples of the same form: see
@@ -128,8 +141,10 @@ def learn(references: Sequence[str], name: str | None = None, pages: set[int] | 
         return with_zones(learn_from_samples(per_sample, refs, name or _default_name(refs[0]), section_names))
     ref = refs[0]
     out_pages: list[TemplatePage] = []
-    for page, vec, ras in reference_pages(ref, limits, pages, with_raster):
-        scanned = vec is None and isinstance(page, RasterPage)
+    for page, vec, ras in reference_pages(ref, limits, pages, with_raster, min_dpi):
+        # A scanned sample is sorted into print and fill-in; a photo is read through its sheet,
+        # whose picture is not the page's, so it is taken as it is read.
+        scanned = vec is None and isinstance(page, RasterPage) and page.dpi_stated
         if scanned:
             ras, aside, why = printed_sort(page, ras)
         tp = template_page(len(out_pages) + 1, vec, ras, section_names)
@@ -330,16 +345,22 @@ def unrecognised_record(source: str, page: int | None, message: str, t0: float) 
 
 
 def pose_record(match: Match, tp: TemplatePage, input_size: tuple[float, float]) -> dict | None:
+    """The record's ``pose``: turn, scales and shift of the best affine approximation over the
+    template page (the pose itself unless it is projective), its 2 x 3 ``matrix``, and the full
+    3 x 3 ``projective`` matrix (template points -> input points)."""
     if match.pose is None:
         return None
-    p = match.pose
+    frame = (0.0, 0.0, tp.width, tp.height)
+    p = match.pose.affine_over(frame)
     return {
         "rotation_deg": round(p.rotation_deg, 4),
         "scale": round(p.scale, 6),
         "scale_x": round(p.scale_x, 6),
         "scale_y": round(p.scale_y, 6),
-        "shift_mm": [round(float(v), 3) for v in p.shift_mm((tp.width, tp.height), input_size)],
+        "shift_mm": [round(float(v), 3) for v in match.pose.shift_mm((tp.width, tp.height), input_size)],
         "matrix": [[round(v, 6) for v in row] for row in p.as_2x3()],
+        "model": match.pose.kind,
+        "projective": [[float(f"{v:.9g}") for v in row] for row in match.pose.as_3x3()],
     }
 
 
@@ -354,30 +375,74 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
     problem = page_content_problem(page.image) if isinstance(page, RasterPage) else None
     if problem:
         return unrecognised_record(page.source, page.page, f"Not a form: {problem}", t0)
+    cap = None
     try:
-        found = extract(page)
+        if isinstance(page, RasterPage):
+            from .capture import prepare
+
+            cap = prepare(page, camera=not page.dpi_stated)
+        found = extract(page if cap is None else cap.page)
     except Exception as exc:  # an extractor bug on one page must not end the batch
         msg = f"{where(page.source, page.page)}: elements could not be read ({type(exc).__name__}: {exc})"
         return error_record(page.source, page.page, msg, (time.perf_counter() - t0) * 1000)
     if not found.elements:
         return unrecognised_record(page.source, page.page, "Not a form: no lines, boxes or text found on the page (blank page?)", t0)
-    return record_for(page.source, page.page, found, templates, settings, t0, page=page)
+    return record_for(page.source, page.page, found, templates, settings, t0, page=page, capture=cap)
+
+
+#: Scales considered for a photo whose sheet was found: its page is the sheet at a resolution
+#: that takes the sheet's long side as 11.35 in, so the form is at scale 1 within the spread of
+#: paper sizes (A5's 8.27 in to A3's 16.5 in long side: ISO 216; Letter 11 in: ANSI).
+SHEET_SCALE_RANGE = (0.7, 1.45)
+
+
+def camera_settings(settings: CheckSettings, sheet_found: bool = False) -> CheckSettings:
+    """Settings for a camera capture: the perspective is freed whenever it is measurable, the
+    agreeing set is grown region by region from the vote's cluster, and the vote takes x and y
+    scales up to 15 % apart (the flattened sheet's sides are means of sides seen in perspective).
+    With the sheet found, only scales near 1 are considered (:data:`SHEET_SCALE_RANGE`): a
+    filled-in photo's handwriting must not pair the form's small labels with large scribbles;
+    for the same reason printed text does not vote for the scale."""
+    from dataclasses import replace
+
+    extra = {"scale_range": SHEET_SCALE_RANGE} if sheet_found else {}
+    return replace(settings, solver=replace(settings.solver, perspective_min=0.0, grow=True, max_anisotropy=0.15,
+                                            text_scale=False, **extra))
 
 
 def record_for(source: str, page_no: int, found: PageElements, templates: Sequence[Template],
-               settings: CheckSettings, t0: float | None = None, page=None) -> dict:
+               settings: CheckSettings, t0: float | None = None, page=None, capture=None) -> dict:
+    """The record of one page from its found elements (``capture``: see :mod:`layoutcheck.capture`;
+    the found elements are then those of the capture's page)."""
     t0 = time.perf_counter() if t0 is None else t0
-    index, ident = identify_page(templates, found, settings)
-    input_size = (found.width, found.height)
+    camera = capture is not None and capture.kind == "camera"
+    solve_settings = camera_settings(settings, capture.sheet_px is not None) if camera else settings
+    index, ident = identify_page(templates, found, solve_settings)
     if ident.best is None:
         msg = "no template page to compare with"
         rec = error_record(source, page_no, f"{where(source, page_no)}: {msg}")
         return rec
-    template, tp = index.page(ident.best.row)
     match = ident.best.match
-    if isinstance(page, RasterPage) and match.pose is not None:
-        found, match = look_again(page, found, tp, match, settings)
-    verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size)
+    if camera and match.pose is not None:
+        ident, capture, found, match = second_reading(index, ident, page, capture, found, solve_settings)
+    template, tp = index.page(ident.best.row)
+    read = page if capture is None else capture.page
+    if isinstance(read, RasterPage) and match.pose is not None:
+        found, match = look_again(read, found, tp, match, solve_settings)
+    if capture is not None and match.pose is not None:
+        from dataclasses import replace
+
+        # One pose from template to input: the match on the capture's page, then its place on the input.
+        match = replace(match, pose=match.pose.compose(capture.to_input))
+    input_size = (found.width, found.height) if capture is None else (page.width, page.height)
+    camera = camera or (match.pose is not None and match.pose.is_projective)
+    readability = None
+    if camera and match.pose is not None and isinstance(page, RasterPage):
+        from .capture import readability as measure
+
+        readability = measure(match.pose, (tp.width, tp.height), page.dpi)
+    verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size,
+                              camera=camera, readability=readability)
     recognised = verdict != "unrecognised"
     if recognised:
         findings += routing_findings(index, ident, found, settings)
@@ -392,7 +457,8 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         "findings": [f.to_dict() for f in findings],
         "pose": pose_record(match, tp, input_size) if recognised else None,
         "support": round(match.support, 4),
-        "offending": offending(match) if recognised else [],
+        "offending": offending(match, ("missing", "resized") if camera and too_small(readability, settings.tolerances)
+                               else ()) if recognised else [],
         "sections": [
             {"id": s.id, "name": s.name, "status": s.status, "offset_mm": [round(v, 2) for v in s.offset_mm],
              "support": round(s.support, 4), "elements": s.elements}
@@ -400,6 +466,8 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         ] if recognised else [],
         "elapsed_ms": round((time.perf_counter() - t0) * 1000, 2),
         "error": None,
+        "capture": "camera" if camera else "scan",
+        "effective_dpi": readability.to_dict() if readability is not None and recognised else None,
     }
     if found.source == "raster":
         # Template elements found only by the second look (under a stamp, across a tick, a rule
@@ -513,6 +581,65 @@ def revision_differences(tp: TemplatePage, match: Match, other_tp: TemplatePage,
     return first, shown
 
 
+#: Most resolution at which a photo is read a second time, in its template's frame (dpi).
+SECOND_READING_DPI = 250.0
+#: Scales considered in the second reading (see :func:`read_again`).
+SECOND_READING_SCALES = (0.6, 1.6)
+
+
+def second_reading(index, ident, page, capture, found, settings):
+    """:func:`read_again` for the chosen template page. A page that agrees with none well enough
+    (its first reading may have missed the rules that tell the forms apart) is read again for
+    each of the three template pages tried that it agreed with best; the best agreeing is kept.
+    Returns ``(identification, capture, found, match)``, the identification's best being the
+    template page kept, with the second reading's match."""
+    from dataclasses import replace
+
+    best = ident.best
+    if best.match.support >= settings.tolerances.min_support:
+        firsts = [best]
+    else:
+        firsts = sorted((c for c in ident.tried.values() if c.match.pose is not None),
+                        key=lambda c: -c.match.support)[:3]
+    kept = (best, capture, found, best.match)
+    for cand in firsts:
+        cap2, found2, m2 = read_again(page, capture, found, index.page(cand.row)[1], cand.match, settings)
+        if cand is best and kept[3] is best.match or m2.support > kept[3].support:
+            kept = (cand, cap2, found2, m2)
+    cand, cap2, found2, m2 = kept
+    rival = ident.rival if ident.rival is not None and ident.rival.row != cand.row else None
+    return replace(ident, best=replace(cand, match=m2), rival=rival), cap2, found2, m2
+
+
+def read_again(page: RasterPage, capture, found: PageElements, tp: TemplatePage, match: Match,
+               settings: CheckSettings):
+    """Read a photo a second time, in the template's frame through the first match's pose.
+
+    The first reading sees the sheet as its outline gave it; an outline off by a few
+    millimetres (a corner in shadow) leaves the rules slightly oblique to each other, and some
+    are then missed. Seen through the first pose, the form is upright and square, as a flat scan
+    (:func:`layoutcheck.capture.in_template_frame`). Returns ``(capture, found, match)``: the
+    second reading's when it agrees at least as well, else the first's, with the match's pose
+    still on the capture's page.
+    """
+    from dataclasses import replace
+
+    from .capture import in_template_frame
+
+    pose = match.pose.compose(capture.to_input)
+    centre = pose.local_scales(np.array([[tp.width / 2, tp.height / 2]]))[0]
+    dpi = float(min(SECOND_READING_DPI, page.dpi * np.sqrt(centre[0] * centre[1])))
+    second = in_template_frame(page, pose, (tp.width, tp.height), dpi)
+    found2 = extract(second.page)
+    # The form now lies at scale 1 within a few percent: only scales near it vote, while an
+    # element shrunk or grown by a third still pairs with its place (and is found resized).
+    near = replace(settings, solver=replace(settings.solver, scale_range=SECOND_READING_SCALES))
+    match2 = match_page(tp, found2, near)
+    if match2.pose is None or match2.support < match.support:
+        return capture, found, match
+    return second, found2, match2
+
+
 def look_again(page: RasterPage, found: PageElements, tp: TemplatePage, match: Match,
                settings: CheckSettings) -> tuple[PageElements, Match]:
     """Look again, at the place the pose predicts, for the offending rules and boxes of a scan.
@@ -568,8 +695,12 @@ def handoff(rec: dict, page, found: PageElements, tp: TemplatePage, match: Match
         if rec["verdict"] in NORMALISABLE and match.pose is not None and page is not None:
             from .normalise import normalise_page
 
+            # A photo is written at the usual resolution nearest its effective one at the form's
+            # centre (its file states none; a usual value is read back as written).
+            eff = (rec.get("effective_dpi") or {}).get("centre")
+            dpi = settings.normalise_dpi or (float(min(USUAL_DPI, key=lambda u: abs(u - eff))) if eff else None)
             rec["normalised"] = normalise_page(page, match.pose, (tp.width, tp.height), settings.normalise_dir,
-                                               settings.normalise_dpi, settings.normalise_format)
+                                               dpi, settings.normalise_format)
     return rec
 
 

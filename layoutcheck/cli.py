@@ -83,7 +83,10 @@ def main() -> None:
 @click.option("--password", help="Password of an encrypted reference PDF.")
 @click.option("--form", "form", help="The form this template is a revision of, e.g. KBH-101 (with --revision).")
 @click.option("--revision", help="Which revision of the form this template is, e.g. 3.")
-def learn(references, output, update, name, pages_spec, dpi, section_names, zones_file, password, form, revision):
+@click.option("--min-dpi", type=float, default=Tolerances.min_dpi, show_default=True,
+              help="Least effective resolution of a photographed reference.")
+def learn(references, output, update, name, pages_spec, dpi, section_names, zones_file, password, form, revision,
+          min_dpi):
     """Learn a template from a reference (a blank PDF or a clean scan), or from several good samples."""
     if output is None and update is None:
         raise click.UsageError("give the template file to write with -o/--output")
@@ -103,7 +106,8 @@ def learn(references, output, update, name, pages_spec, dpi, section_names, zone
             output = output or update
         else:
             template = learn_template(list(references), name=name, pages=pages, dpi=dpi, password=password,
-                                      section_names=names, zones=zones_file, form=form, revision=revision)
+                                      section_names=names, zones=zones_file, form=form, revision=revision,
+                                      min_dpi=min_dpi)
     except TemplateError as exc:
         raise TemplateProblem(str(exc)) from None
     except LearnError as exc:
@@ -156,12 +160,16 @@ def tolerance_options(f):
         optgroup.option("--element-tolerance", type=float, default=Tolerances.element_tolerance_mm, show_default=True, help="Millimetres an element may sit off its place."),
         optgroup.option("--element-size-tolerance", type=float, default=Tolerances.element_size_pct, show_default=True, help="Percent size change of an element accepted."),
         optgroup.option("--min-support", type=float, default=Tolerances.min_support, show_default=True, help="Share of elements that must agree for the page to be the form."),
+        optgroup.option("--min-dpi", type=float, default=Tolerances.min_dpi, show_default=True,
+                        help="Least effective resolution anywhere on the form of a photo; below it the photo is to be taken again."),
     ])
 
 
-def make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support) -> Tolerances:
+def make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support,
+                    min_dpi=Tolerances.min_dpi) -> Tolerances:
     try:
-        return Tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support)
+        return Tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support,
+                          min_dpi)
     except ValueError as exc:
         raise click.UsageError(str(exc)) from None
 
@@ -249,7 +257,7 @@ def _progress(quiet: bool):
 @batch_options()
 @handoff_options
 def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max_pixels, more_templates, expect_revision,
-           max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, quiet,
+           max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, min_dpi, quiet,
            handoff, batch):
     """Check INPUT files (PDF, PNG, JPEG, TIFF) against TEMPLATE (a file or a folder of templates).
 
@@ -257,7 +265,7 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     standard input. Each page gets one JSON Lines record, in input and page order.
     """
     templates = load_templates([template, *more_templates])
-    tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support)
+    tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, min_dpi)
     settings = CheckSettings(tolerances=tol, expect_revision=expected_revisions(expect_revision, templates), **handoff)
     limits = ReadLimits(max_pixels=max_pixels, max_pages=max_pages, dpi=dpi, password=password)
     if batch["resume"] and (not json_out or json_out == "-"):
@@ -339,7 +347,7 @@ def templates_command(template_dir, neighbours):
 @handoff_options
 def watch(template, inbox, out_dir, once, settle, json_out, report_out, dpi, password, max_pages, max_pixels,
           more_templates, expect_revision, max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support,
-          quiet, handoff, batch):
+          min_dpi, quiet, handoff, batch):
     """Watch INBOX: check each file dropped there against TEMPLATE, record it, and move it to
     OUT/pass/, OUT/review/ or OUT/error/.
 
@@ -354,7 +362,7 @@ def watch(template, inbox, out_dir, once, settle, json_out, report_out, dpi, pas
     if batch["scheduler"] and batch["engine"] != "dask":
         raise click.UsageError("--scheduler needs --engine dask")
     templates = load_templates([template, *more_templates])
-    tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support)
+    tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, min_dpi)
     settings = CheckSettings(tolerances=tol, expect_revision=expected_revisions(expect_revision, templates), **handoff)
     limits = ReadLimits(max_pixels=max_pixels, max_pages=max_pages, dpi=dpi, password=password)
     try:

@@ -89,6 +89,23 @@ class SolverSettings:
     #: costs (2 mm for a size off by a factor e): of two partners about as near, the one of the
     #: expected size is taken.
     size_cost: float = 5.67
+    #: The projective refinement is kept when it lowers the weighted squared residual by
+    #: ``affine_gain`` and its perspective moves some agreeing element this far from the best
+    #: affine map of the same elements (0.5 mm: far above what the blur of a flat scan fakes).
+    #: A camera capture sets it to 0: a photo is seen in perspective by nature.
+    perspective_min: float = 1.42
+    #: Fewest agreeing elements for a projective refinement (8 parameters).
+    projective_min_elements: int = 8
+    #: Largest |log(sx / sy)| the vote takes from the boxes' own sizes; beyond it one scale is
+    #: used (5 %: fit-to-page and feeders; the flattened sheet of a photo may be stretched more).
+    max_anisotropy: float = 0.05
+    #: Whether printed text votes for the page scale. On a photo of a filled form, blobs of
+    #: handwriting beside the labels make text sizes unreliable: rules and boxes alone then
+    #: vote (when at least ten pairs of them do).
+    text_scale: bool = True
+    #: Grow the agreeing set region by region from the vote's cluster (for pages seen in
+    #: perspective, whose single-element votes agree only locally).
+    grow: bool = False
 
 
 @dataclass(frozen=True)
@@ -300,6 +317,8 @@ def shift_peak(shifts: np.ndarray, owners: np.ndarray, bin_width: float) -> tupl
 class Hypothesis:
     pose: Pose
     votes: int
+    #: Template point at the middle of the elements whose votes made it (where it holds best).
+    seed: tuple[float, float] = (0.0, 0.0)
 
 
 def _log_sizes(fa: FrameArrays) -> np.ndarray:
@@ -550,18 +569,22 @@ def _hypothesis_for_rotation(tmpl, inp, ti, ii, pidx, prot, rot, settings) -> Hy
     fin = np.isfinite(ls) & (ls >= lo) & (ls <= hi)
     if not fin.any():
         return None
-    hist = _peaks_1d(ls[fin], t_i[fin], settings.log_scale_bin, lo, hi, circular=False)
+    by = fin
+    if not settings.text_scale:
+        shaped = fin & (tmpl.classes[t_i] != TEXT)
+        by = shaped if shaped.sum() >= 10 else fin
+    hist = _peaks_1d(ls[by], t_i[by], settings.log_scale_bin, lo, hi, circular=False)
     smooth = hist + 0.5 * (np.roll(hist, 1) + np.roll(hist, -1))
     b = int(np.argmax(smooth))
     centre = lo + (b + 0.5) * settings.log_scale_bin
-    near = fin & (np.abs(ls - centre) <= 1.5 * settings.log_scale_bin)
+    near = by & (np.abs(ls - centre) <= 1.5 * settings.log_scale_bin)
     log_s = float(np.median(ls[near]))
     # Per-axis scales from boxes in the peak (template axes; after an odd turn they swap).
     boxy = near & ~is_line & (tmpl.classes[t_i] != TEXT)
     if boxy.sum() >= 3:
         lx, ly = np.median(lr[boxy, 0]), np.median(lr[boxy, 1])
         sx, sy = (math.exp(ly), math.exp(lx)) if k % 2 else (math.exp(lx), math.exp(ly))
-        if abs(math.log(sx / sy)) > 0.05:
+        if abs(math.log(sx / sy)) > settings.max_anisotropy:
             sx = sy = math.exp(log_s)
     else:
         sx = sy = math.exp(log_s)
@@ -579,7 +602,8 @@ def _hypothesis_for_rotation(tmpl, inp, ti, ii, pidx, prot, rot, settings) -> Hy
     m = np.eye(3)
     m[:2, :2] = lin
     m[:2, 2] = t0
-    return Hypothesis(Pose(m), votes)
+    seed = np.median(tmpl.centers[t_i[in_bin]], axis=0)
+    return Hypothesis(Pose(m), votes, (float(seed[0]), float(seed[1])))
 
 
 # -- assignment and refinement --------------------------------------------------------------------
@@ -640,8 +664,11 @@ def assign(pred: np.ndarray, inp_centers: np.ndarray, ti: np.ndarray, ii: np.nda
     return out
 
 
-def fit_pose(src: np.ndarray, dst: np.ndarray, w: np.ndarray, settings: SolverSettings) -> Pose | None:
-    """Weighted similarity, or affine when the x and y scales measurably differ."""
+def fit_pose(src: np.ndarray, dst: np.ndarray, w: np.ndarray, settings: SolverSettings,
+             projective: bool = True) -> Pose | None:
+    """Weighted similarity; affine when the x and y scales measurably differ; projective when
+    the perspective is measurable and explains the elements clearly better (model choice by the
+    share of weighted squared residual removed, as between similarity and affine)."""
     sim = Pose.from_pairs(src, dst, "similarity", w)
     if not sim:
         return None
@@ -650,11 +677,23 @@ def fit_pose(src: np.ndarray, dst: np.ndarray, w: np.ndarray, settings: SolverSe
     aff = Pose.from_pairs(src, dst, "affine", w)
     if not aff:
         return sim
-    if abs(aff.scale_x / aff.scale_y - 1.0) <= settings.anisotropy and abs(aff.shear_deg) <= 0.1:
-        return sim
     ws = float((w * sim.residuals(src, dst) ** 2).sum())
     wa = float((w * aff.residuals(src, dst) ** 2).sum())
-    return aff if wa < (1.0 - settings.affine_gain) * ws else sim
+    best, wb = sim, ws
+    if not (abs(aff.scale_x / aff.scale_y - 1.0) <= settings.anisotropy and abs(aff.shear_deg) <= 0.1):
+        if wa < (1.0 - settings.affine_gain) * ws:
+            best, wb = aff, wa
+    if not projective or len(src) < settings.projective_min_elements:
+        return best
+    proj = Pose.from_pairs(src, dst, "projective", w)
+    if not proj:
+        return best
+    wp = float((w * proj.residuals(src, dst) ** 2).sum())
+    # How far the perspective itself moves the elements: projective against the best affine map.
+    bend = float(np.hypot(*(proj.apply(src) - Pose.from_pairs(src, proj.apply(src), "affine").apply(src)).T).max())
+    if bend >= settings.perspective_min and wp < (1.0 - settings.affine_gain) * min(wb, wa):
+        return proj
+    return best
 
 
 def refine(pose: Pose, tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray | None, ii: np.ndarray | None,
@@ -706,6 +745,47 @@ def refine(pose: Pose, tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray | Non
     return pose, assignment, agree
 
 
+def grow(h: Hypothesis, tmpl: FrameArrays, inp: FrameArrays, weights: np.ndarray, settings: SolverSettings,
+         start: float = 0.3, factor: float = 1.5, pairs: tuple[np.ndarray, np.ndarray] | None = None) -> Pose:
+    """Grow the agreeing set region by region from the vote's cluster; returns the pose.
+
+    On a page seen in perspective, single-element votes agree only locally: the winning shift
+    cell holds one region of the form. Starting from the template elements within ``start`` of
+    the page's extent around :attr:`Hypothesis.seed`, the pose is refitted on the elements of a
+    disc that widens by ``factor`` each round, each round's pose predicting the next ring's
+    places; the perspective is freed only once the disc spans most of the page (a homography
+    fitted on one corner would not extrapolate). ``pairs`` limits the candidate pairs (else
+    any compatible pair near its predicted place is one).
+    """
+    d = np.hypot(*(tmpl.centers - np.array(h.seed)).T)
+    reach = float(d.max()) if len(d) else 0.0
+    radius = max(start * reach, 3.0 * settings.shift_bin)
+    pose = h.pose
+    while True:
+        inside = np.flatnonzero(d <= radius)
+        for _ in range(2):
+            pred = pose.apply(tmpl.centers)
+            if pairs is None:
+                cand = spatial_pairs(pred, tmpl, inp, settings.refine_gate, pose.scale, settings, only=inside)
+            else:
+                sel = np.isin(pairs[0], inside)
+                cand = (pairs[0][sel], pairs[1][sel])
+            a = assign(pred, inp.centers, *cand, settings.refine_gate)
+            got = np.flatnonzero(a >= 0)
+            if len(got) < 3:
+                break
+            res = np.hypot(*(pred[got] - inp.centers[a[got]]).T)
+            use = got[res <= max(settings.agree * 2.0, np.median(res) * 3.0)]
+            new = fit_pose(tmpl.centers[use], inp.centers[a[use]], weights[use], settings,
+                           projective=radius >= 0.6 * reach)
+            if new is None:
+                break
+            pose = new
+        if radius >= reach:
+            return pose
+        radius = min(reach, radius * factor)
+
+
 def _strong(hyps: list[Hypothesis]) -> list[Hypothesis]:
     """Hypotheses worth refining: those with at least half the votes of the best."""
     if not hyps:
@@ -735,6 +815,8 @@ def solve_correspondences(model_frames: FrameArrays, input_frames: FrameArrays, 
     hyps = _strong(vote_pose(model_frames, input_frames, ti, ii, settings))
     best = None
     for h in hyps:
+        if settings.grow:
+            h = Hypothesis(grow(h, model_frames, input_frames, weights, settings, pairs=(ti, ii)), h.votes, h.seed)
         # Refine on the given pairs near this hypothesis' prediction (twice the refinement gate).
         pred = h.pose.apply(model_frames.centers)
         near = np.hypot(*(pred[ti] - input_frames.centers[ii]).T) <= 2.0 * settings.refine_gate
@@ -807,10 +889,12 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
         hyps = [_most_assigned(hyps, tmpl, inp, settings)]
     best = None
     for h in hyps:
-        pose, assignment, agree = refine(h.pose, tmpl, inp, None, None, weights, settings)
-        score = float(agree[judged].sum()) + 0.01 * float(agree.sum())
-        if best is None or score > best[0]:
-            best = (score, pose, assignment, agree)
+        starts = [h.pose, grow(h, tmpl, inp, weights, settings)] if settings.grow else [h.pose]
+        for start in starts:
+            pose, assignment, agree = refine(start, tmpl, inp, None, None, weights, settings)
+            score = float(agree[judged].sum()) + 0.01 * float(agree.sum())
+            if best is None or score > best[0]:
+                best = (score, pose, assignment, agree)
     if best is None:
         return Match(None, 0.0, _all_missing(tmpl_els, sections, judged), (), len(hyps), len(ti),
                      reason="no element of the template has a counterpart on the page")

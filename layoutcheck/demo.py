@@ -10,8 +10,9 @@ import json
 from pathlib import Path
 from typing import Callable
 
-#: The input the demo also writes normalised (turned, scaled and shifted into the form's frame).
-NORMALISE_DEMO = "inputs/scan_101_skewed.png"
+#: The inputs the demo also writes normalised (turned, scaled and shifted into the form's frame;
+#: the photo's perspective removed).
+NORMALISE_DEMO = ("inputs/scan_101_skewed.png", "inputs/photo_101_filled.jpg")
 #: The forms the demo learns; KBH-412 is drawn only to be the "different form" input.
 DEMO_FORMS = ("KBH-101_vessel_arrival", "KBH-205_cargo_manifest", "KBH-310_berth_application")
 
@@ -44,11 +45,11 @@ def run_demo(out_dir: Path, echo: Callable[[str], None] = print) -> int:
     expected += json.loads((samples / "expected_scans.json").read_text(encoding="utf-8"))
     inputs = sorted({e["input"] for e in expected})
     records = []
-    # Every record carries its zones; one scan is also handed over normalised, to show how.
+    # Every record carries its zones; one scan and the photo are also handed over normalised, to show how.
     settings = CheckSettings(zones=True)
     normalised = CheckSettings(zones=True, normalise_dir=str(out_dir / "normalised"))
     for rel in inputs:
-        results = check_file(str(samples / rel), templates, settings=normalised if rel == NORMALISE_DEMO else settings,
+        results = check_file(str(samples / rel), templates, settings=normalised if rel in NORMALISE_DEMO else settings,
                              errors="keep")
         records.extend(r.to_record() for r in results)
     jsonl = out_dir / "results.jsonl"

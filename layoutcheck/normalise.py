@@ -76,6 +76,8 @@ def resample(image: np.ndarray, out_to_in: np.ndarray, size: tuple[int, int], bi
     image : (H, W) uint8 array
         Grey input, 0 black .. 255 white; outside it is white paper.
     out_to_in : (3, 3) or (2, 3) array
+        A 3 x 3 map may carry perspective (a photo): it is then sampled by
+        ``cv2.warpPerspective``.
     size : (width, height)
         Output size in pixels.
     bitonal : bool
@@ -92,9 +94,11 @@ def resample(image: np.ndarray, out_to_in: np.ndarray, size: tuple[int, int], bi
     When the output is much coarser than the input (more than 1.5 input pixels per output pixel)
     the input is first reduced by area averaging, so thin rules do not alias away.
     """
-    m = np.vstack([np.asarray(out_to_in, dtype=float)[:2], [0.0, 0.0, 1.0]])
+    m = np.asarray(out_to_in, dtype=float)
+    m = m if m.shape == (3, 3) else np.vstack([m[:2], [0.0, 0.0, 1.0]])
     img = np.ascontiguousarray(image, dtype=np.uint8)
-    step = float(np.sqrt(abs(np.linalg.det(m[:2, :2]))))  # input px per output px
+    # Input px per output px, at the output's centre (the same everywhere unless in perspective).
+    step = float(np.sqrt(np.prod(Pose(m).local_scales(np.array([[size[0] / 2.0, size[1] / 2.0]]))[0])))
     if step > 1.5:
         h, w = img.shape
         nw, nh = max(1, int(round(w / step))), max(1, int(round(h / step)))
@@ -103,8 +107,14 @@ def resample(image: np.ndarray, out_to_in: np.ndarray, size: tuple[int, int], bi
     if interpolation not in ("cubic", "linear"):
         raise ValueError(f"unknown interpolation {interpolation!r}: use 'cubic' or 'linear'")
     flags = cv2.INTER_LINEAR if (bitonal or interpolation == "linear") else cv2.INTER_CUBIC
-    out = cv2.warpAffine(img, to_centre_convention(m), (int(size[0]), int(size[1])),
-                         flags=flags | cv2.WARP_INVERSE_MAP, borderMode=cv2.BORDER_CONSTANT, borderValue=255)
+    if np.any(np.abs(m[2, :2]) > 0):
+        # Seen in perspective (a photo): the same map, whole, by cv2.warpPerspective.
+        half = np.array([[1.0, 0.0, 0.5], [0.0, 1.0, 0.5], [0.0, 0.0, 1.0]])
+        out = cv2.warpPerspective(img, np.linalg.inv(half) @ m @ half, (int(size[0]), int(size[1])),
+                                  flags=flags | cv2.WARP_INVERSE_MAP, borderMode=cv2.BORDER_CONSTANT, borderValue=255)
+    else:
+        out = cv2.warpAffine(img, to_centre_convention(m), (int(size[0]), int(size[1])),
+                             flags=flags | cv2.WARP_INVERSE_MAP, borderMode=cv2.BORDER_CONSTANT, borderValue=255)
     if bitonal:
         out = np.where(out >= 128, 255, 0).astype(np.uint8)
     return out

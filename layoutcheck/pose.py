@@ -1,7 +1,12 @@
 """Pose of a page: a 2-D transform from template points to input points.
 
 A :class:`Pose` is one homogeneous 3 x 3 matrix; rotation, scales, shear and shift are derived
-from it, never stored twice. Both sides are in points, top-left origin, y down (see
+from it, never stored twice. Its kinds differ only in how many parameters a fit frees: a
+similarity (4), an affine map (6) or a projective one (8, a homography: a photographed sheet seen
+in perspective). Every kind maps points, inverts, composes and projects a frame the same way;
+for a projective pose the derived quantities (rotation, scales, shear) are those of its local
+linear map at :attr:`Pose.anchor` (the centre of the points it was fitted on), and
+:meth:`Pose.affine_over` gives the best affine approximation over a region. Both sides are in points, top-left origin, y down (see
 :mod:`layoutcheck.elements`), so ``scale`` is the size of the content on the input relative to the
 template in physical units.
 
@@ -45,6 +50,8 @@ class Pose:
     """
 
     matrix: np.ndarray
+    #: Template point at which the derived quantities of a projective pose are measured.
+    anchor: tuple[float, float] = (0.0, 0.0)
 
     def __post_init__(self) -> None:
         m = np.array(self.matrix, dtype=float)
@@ -52,8 +59,12 @@ class Pose:
             m = np.vstack([m, [0.0, 0.0, 1.0]])
         if m.shape != (3, 3):
             raise ValueError(f"a pose needs a 3x3 or 2x3 matrix, got shape {m.shape}")
+        if not np.all(np.isfinite(m)) or abs(m[2, 2]) < 1e-300:
+            raise ValueError("a pose needs a finite matrix with a non-zero last element")
+        m = m / m[2, 2]  # one representative of the homogeneous matrix
         m.setflags(write=False)
         object.__setattr__(self, "matrix", m)
+        object.__setattr__(self, "anchor", (float(self.anchor[0]), float(self.anchor[1])))
 
     # -- construction -------------------------------------------------------------------------
     @classmethod
@@ -95,13 +106,16 @@ class Pose:
 
         Minimises ``sum_i w_i * ||P(model_i) - input_i||^2`` over similarities (rotation, one
         scale, shift; the closed form of Umeyama 1991, written here as the equivalent linear
-        problem in ``a = s cos, b = s sin``) or over affine maps (``kind="affine"``).
+        problem in ``a = s cos, b = s sin``), over affine maps (``kind="affine"``) or over
+        homographies (``kind="projective"``: the normalised direct linear solve of Hartley 1997,
+        points centred and scaled first, then Levenberg-Marquardt on the same weighted distances
+        with ``scipy.optimize.least_squares``).
 
         Parameters
         ----------
         model_pts, input_pts : (N, 2) arrays
             Corresponding points, template side and input side, in points.
-        kind : {"similarity", "affine"}
+        kind : {"similarity", "affine", "projective"}
         weights : (N,) array, optional
             Non-negative weight per pair.
 
@@ -109,7 +123,8 @@ class Pose:
         -------
         Pose or DegenerateFit
             A :class:`DegenerateFit` (tests false, has ``reason``) when the points cannot fix
-            the pose: too few, coincident or (for affine) collinear.
+            the pose: too few, coincident or (for affine) collinear, or (for projective) three of
+            every four on a line.
 
         Examples
         --------
@@ -128,9 +143,9 @@ class Pose:
             return DegenerateFit(f"{len(w)} weights for {len(src)} point pairs")
         keep = w > 0
         src, dst, w = src[keep], dst[keep], w[keep]
-        need = {"similarity": 2, "affine": 3}.get(kind)
+        need = {"similarity": 2, "affine": 3, "projective": 4}.get(kind)
         if need is None:
-            raise ValueError(f"unknown pose kind {kind!r}: use 'similarity' or 'affine'")
+            raise ValueError(f"unknown pose kind {kind!r}: use 'similarity', 'affine' or 'projective'")
         if len(src) < need:
             return DegenerateFit(f"{kind} pose needs at least {need} point pairs, got {len(src)}")
         wsum = w.sum()
@@ -141,6 +156,8 @@ class Pose:
         spread = float((w * (s0**2).sum(1)).sum() / wsum)
         if spread < 1e-12:
             return DegenerateFit("model points coincide: the pose is not determined")
+        if kind == "projective":
+            return _fit_projective(src, dst, w, mu_s)
         m = np.eye(3)
         if kind == "similarity":
             # Centred, the problem separates: a = sum w (x.x'), b = sum w (x cross x') over spread.
@@ -155,28 +172,94 @@ class Pose:
             lin = cross @ np.linalg.inv(cov)
         m[:2, :2] = lin
         m[:2, 2] = mu_d - lin @ mu_s
-        return cls(m)
+        return cls(m, tuple(mu_s))
 
     # -- use ----------------------------------------------------------------------------------
     def apply(self, pts: np.ndarray) -> np.ndarray:
-        """Map (N, 2) template points to input points."""
+        """Map (N, 2) template points to input points (homogeneous division for every kind)."""
         p = np.asarray(pts, dtype=float).reshape(-1, 2)
-        return p @ self.matrix[:2, :2].T + self.matrix[:2, 2]
+        m = self.matrix
+        out = p @ m[:2, :2].T + m[:2, 2]
+        if self.is_projective:
+            out = out / (p @ m[2, :2] + m[2, 2])[:, None]
+        return out
+
+    def project_frame(self, frame) -> np.ndarray:
+        """Corners of a frame ``(x0, top, x1, bottom)`` on the input, 4 x 2, in the order
+        top-left, top-right, bottom-right, bottom-left (in the template's sense)."""
+        x0, top, x1, bottom = (float(v) for v in frame)
+        return self.apply(np.array([[x0, top], [x1, top], [x1, bottom], [x0, bottom]]))
+
+    def jacobian(self, pts: np.ndarray) -> np.ndarray:
+        """Local linear map (N, 2, 2) at each template point: d(input) / d(template)."""
+        p = np.asarray(pts, dtype=float).reshape(-1, 2)
+        m = self.matrix
+        wgt = p @ m[2, :2] + m[2, 2]
+        mapped = self.apply(p)
+        # d(u/w)/dx = (m00 - u m20) / w, and alike for the other three entries.
+        jac = (m[None, :2, :2] - mapped[:, :, None] * m[None, 2, :2][:, None, :]) / wgt[:, None, None]
+        return jac
+
+    def local_scales(self, pts: np.ndarray) -> np.ndarray:
+        """Smallest and largest stretch (N, 2) of the pose at each template point.
+
+        The singular values of :meth:`jacobian`: input length per template length along the
+        direction shrunk most and the one stretched most.
+        """
+        return np.linalg.svd(self.jacobian(pts), compute_uv=False)[:, ::-1]
+
+    def affine_over(self, frame, n: int = 9) -> "Pose":
+        """Best affine approximation (least squares on an ``n`` x ``n`` grid) over a frame.
+
+        For an affine pose this is the pose itself.
+        """
+        if not self.is_projective:
+            return self
+        x0, top, x1, bottom = (float(v) for v in frame)
+        gx, gy = np.meshgrid(np.linspace(x0, x1, n), np.linspace(top, bottom, n))
+        grid = np.column_stack([gx.ravel(), gy.ravel()])
+        fit = Pose.from_pairs(grid, self.apply(grid), "affine")
+        return fit if fit else Pose(self.jacobian_pose().matrix)
+
+    def jacobian_pose(self) -> "Pose":
+        """First-order (affine) approximation at :attr:`anchor`."""
+        a = np.array(self.anchor)
+        lin = self.jacobian(a)[0]
+        m = np.eye(3)
+        m[:2, :2] = lin
+        m[:2, 2] = self.apply(a)[0] - lin @ a
+        return Pose(m, self.anchor)
 
     def residuals(self, model_pts: np.ndarray, input_pts: np.ndarray) -> np.ndarray:
         """Euclidean distance, in points, between mapped model points and input points."""
         return np.hypot(*(self.apply(model_pts) - np.asarray(input_pts, dtype=float).reshape(-1, 2)).T)
 
     def inverse(self) -> "Pose":
-        return Pose(np.linalg.inv(self.matrix))
+        return Pose(np.linalg.inv(self.matrix), tuple(self.apply(self.anchor)[0]))
 
     def compose(self, then: "Pose") -> "Pose":
         """The pose that applies ``self`` first and ``then`` after it."""
-        return Pose(then.matrix @ self.matrix)
+        return Pose(then.matrix @ self.matrix, self.anchor)
 
     # -- derived quantities -------------------------------------------------------------------
     @property
+    def is_projective(self) -> bool:
+        """Whether the last row carries perspective (a homography, not an affine map)."""
+        return bool(abs(self.matrix[2, 0]) > 1e-15 or abs(self.matrix[2, 1]) > 1e-15)
+
+    @property
+    def kind(self) -> str:
+        """``"similarity"``, ``"affine"`` or ``"projective"``: the fewest parameters that hold it."""
+        if self.is_projective:
+            return "projective"
+        a, b, c, d = self.matrix[:2, :2].ravel()
+        return "similarity" if abs(a - d) < 1e-12 and abs(b + c) < 1e-12 else "affine"
+
+    @property
     def linear(self) -> np.ndarray:
+        """The 2 x 2 linear part; for a projective pose its local linear map at :attr:`anchor`."""
+        if self.is_projective:
+            return self.jacobian(np.array(self.anchor))[0]
         return self.matrix[:2, :2]
 
     @property
@@ -186,7 +269,8 @@ class Pose:
     @property
     def rotation_deg(self) -> float:
         """Turn of the content as a person sees it, counterclockwise positive, in (-180, 180]."""
-        a = -math.degrees(math.atan2(self.matrix[1, 0], self.matrix[0, 0]))
+        lin = self.linear
+        a = -math.degrees(math.atan2(lin[1, 0], lin[0, 0]))
         return 180.0 if a <= -180.0 else a
 
     @property
@@ -221,5 +305,73 @@ class Pose:
         ic = np.array(input_size, dtype=float) / 2.0
         return (self.apply(tc)[0] - ic) * MM_PER_POINT
 
-    def as_2x3(self) -> list[list[float]]:
-        return [[float(v) for v in row] for row in self.matrix[:2]]
+    def as_2x3(self, frame=None) -> list[list[float]]:
+        """The 2 x 3 affine matrix; for a projective pose its best affine approximation over
+        ``frame`` (default: its first-order approximation at :attr:`anchor`)."""
+        approx = self if not self.is_projective else (self.affine_over(frame) if frame is not None else self.jacobian_pose())
+        return [[float(v) for v in row] for row in approx.matrix[:2]]
+
+    def as_3x3(self) -> list[list[float]]:
+        """The homogeneous matrix, last element 1."""
+        return [[float(v) for v in row] for row in self.matrix]
+
+
+def _conditioner(pts: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """Similarity moving the weighted centroid to 0 and the mean distance to sqrt(2) (Hartley)."""
+    mu = (w[:, None] * pts).sum(0) / w.sum()
+    d = float((w * np.hypot(*(pts - mu).T)).sum() / w.sum())
+    k = math.sqrt(2.0) / max(d, 1e-12)
+    return np.array([[k, 0.0, -k * mu[0]], [0.0, k, -k * mu[1]], [0.0, 0.0, 1.0]])
+
+
+def _fit_projective(src: np.ndarray, dst: np.ndarray, w: np.ndarray, anchor: np.ndarray) -> "Pose | DegenerateFit":
+    """Weighted homography: normalised direct linear solve, then least squares on distances."""
+    from scipy.optimize import least_squares
+
+    ts, td = _conditioner(src, w), _conditioner(dst, w)
+    s = src @ ts[:2, :2].T + ts[:2, 2]
+    d = dst @ td[:2, :2].T + td[:2, 2]
+    n = len(s)
+    x, y, u, v = s[:, 0], s[:, 1], d[:, 0], d[:, 1]
+    one, zero = np.ones(n), np.zeros(n)
+    a = np.empty((2 * n, 9))
+    a[0::2] = np.column_stack([x, y, one, zero, zero, zero, -u * x, -u * y, -u])
+    a[1::2] = np.column_stack([zero, zero, zero, x, y, one, -v * x, -v * y, -v])
+    a *= np.sqrt(np.repeat(w, 2))[:, None]
+    _, sv, vt = np.linalg.svd(a, full_matrices=False)
+    # A unique homography leaves exactly one null direction: the next singular value must not
+    # vanish too (it does when three of every four points lie on a line).
+    if len(sv) < 9 or sv[-2] < 1e-9 * sv[0]:
+        return DegenerateFit("model points are collinear: a projective pose is not determined")
+    h = vt[-1].reshape(3, 3)
+    sw = np.sqrt(w)
+
+    def mapped(p):
+        hm = np.append(p, 1.0).reshape(3, 3)
+        den = s @ hm[2, :2] + 1.0
+        return (s @ hm[:2, :2].T + hm[:2, 2]) / den[:, None], den
+
+    def resid(p):
+        u, _ = mapped(p)
+        return ((u - d) * sw[:, None]).ravel()
+
+    def jac(p):
+        # d(u)/d(h00, h01, h02) = (x, y, 1) / den; d(u)/d(h20, h21) = -u (x, y) / den; alike for v.
+        u, den = mapped(p)
+        x, y = s[:, 0], s[:, 1]
+        k = sw / den
+        j = np.zeros((n, 2, 8))
+        j[:, 0, 0], j[:, 0, 1], j[:, 0, 2] = x * k, y * k, k
+        j[:, 1, 3], j[:, 1, 4], j[:, 1, 5] = x * k, y * k, k
+        j[:, :, 6] = -u * (x * k)[:, None]
+        j[:, :, 7] = -u * (y * k)[:, None]
+        return j.reshape(2 * n, 8)
+
+    if abs(h[2, 2]) > 1e-12 and n > 4:
+        h = h / h[2, 2]
+        fit = least_squares(resid, h.ravel()[:8], jac=jac, method="lm", xtol=1e-14, ftol=1e-14)
+        h = np.append(fit.x, 1.0).reshape(3, 3)
+    m = np.linalg.inv(td) @ h @ ts
+    if not np.all(np.isfinite(m)) or abs(m[2, 2]) < 1e-300:
+        return DegenerateFit("points do not fix a projective pose")
+    return Pose(m, tuple(anchor))

@@ -75,6 +75,10 @@ class RasterPage:
     image: np.ndarray = field(repr=False)
     dpi: float
     bitonal: bool = False
+    #: False when the file states no usable resolution (none, or one that makes the image a
+    #: sheet of many feet, as phones write 72 dpi): ``dpi`` is then a working value taken from
+    #: the image's size, and the page is read as a camera capture (see :mod:`layoutcheck.capture`).
+    dpi_stated: bool = True
 
     kind = "raster"
 
@@ -286,10 +290,11 @@ def image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
             dpi = snap_dpi(float(info_dpi[0]))
         except (TypeError, ValueError, IndexError):
             dpi = None
+    if dpi is not None and max(w, h) / dpi > MAX_SHEET_IN:
+        dpi = None  # a stated resolution that makes the image a sheet of many feet is no resolution
     if dpi is None:
         dpi = limits.dpi
-    if dpi is None:
-        return PageError(source, n, f"{where(source, n)}: resolution unknown (the file states no dpi, or one below 72); give --dpi N")
+    stated = dpi is not None
     try:
         # A frame of a multi-page file is copied as it is read (seeking on reuses the buffer):
         # the array below is that copy. EXIF orientation is applied only when the file has one.
@@ -313,7 +318,30 @@ def image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
         arr = np.asarray(im, dtype=np.uint8)
     except Exception as exc:
         return PageError(source, n, f"{where(source, n)}: image data is damaged ({_one_line(exc)})")
-    return RasterPage(source, n, arr, float(dpi), bitonal)
+    if not stated:
+        dpi = working_dpi(arr.shape)
+    return RasterPage(source, n, arr, float(dpi), bitonal, stated)
+
+
+#: Longest side, inches, of a sheet a usable stated resolution may describe (A3 is 16.5 in,
+#: ISO 216; a little room above it).
+MAX_SHEET_IN = 20.0
+#: Long side assumed for a sheet of unknown size, inches: between A4 (11.69 in, ISO 216) and
+#: Letter (11 in, ANSI): off by at most 4 % for either, well inside what the vote's scale range
+#: and the extractor's sizes in mm allow.
+ASSUMED_LONG_SIDE_IN = 11.35
+
+
+def working_dpi(shape: tuple[int, int], sheet_px: np.ndarray | None = None) -> float:
+    """Resolution to work at for a page without a usable one: the sheet's long side (or the
+    image's) taken as :data:`ASSUMED_LONG_SIDE_IN`."""
+    if sheet_px is not None:
+        q = np.asarray(sheet_px, float)
+        sides = np.hypot(*(q - np.roll(q, -1, axis=0)).T)
+        long_px = max(sides[0] + sides[2], sides[1] + sides[3]) / 2.0
+    else:
+        long_px = float(max(shape))
+    return float(long_px / ASSUMED_LONG_SIDE_IN)
 
 
 def _exif_orientation(frame) -> int | None:

@@ -11,7 +11,7 @@ from .consensus import Match
 
 
 #: Most severe first; a page's verdict is the most severe of its findings.
-VERDICTS = ("error", "unrecognised", "mismatched", "rescaled", "skewed", "shifted", "pass")
+VERDICTS = ("error", "unrecognised", "mismatched", "retake", "rescaled", "skewed", "shifted", "pass")
 SEVERITY = {v: i for i, v in enumerate(VERDICTS)}
 
 
@@ -40,6 +40,13 @@ class Tolerances:
     #: so a filled form (every element there) passes with room and a different form of the same
     #: house style (shared rules and margins) does not; see docs/benchmarks.md.
     min_support: float = 0.5
+    #: Least effective resolution, dpi, anywhere on the form of a camera capture before it must
+    #: be taken again. OCR engines commonly want 200-300 dpi (common practice); 150 still
+    #: shows 8 pt print at about 17 pixels per line.
+    min_dpi: float = 150.0
+    #: Most the perspective correction of a camera capture may enlarge one part of the form
+    #: relative to another (a photo taken too obliquely).
+    max_stretch: float = 2.0
 
     def __post_init__(self) -> None:
         for f in fields(self):
@@ -103,9 +110,28 @@ def rotation_words(rotation_deg: float) -> str:
     return f"turned {abs(rotation_deg):.2f}° {side}"
 
 
+def part_words(x: float, y: float, size: tuple[float, float]) -> str:
+    """'top left', 'middle', 'bottom right' ... for a template point on a page of ``size``."""
+    w, h = size
+    col = ("left", "", "right")[min(2, int(3 * x / max(w, 1e-9)))]
+    row = ("top", "", "bottom")[min(2, int(3 * y / max(h, 1e-9)))]
+    return " ".join(p for p in (row, col) if p) or "middle"
+
+
+def too_small(readability, tolerances: Tolerances) -> bool:
+    """Whether a camera capture shows part of its form below the least resolution: its missing
+    and resized elements are then not judged (print that small cannot be made out reliably)."""
+    return readability is not None and readability.worst_dpi < tolerances.min_dpi
+
+
 def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, float],
-          input_size: tuple[float, float]) -> tuple[str, list[Finding]]:
-    """Verdict and findings of a matched page, most severe finding first."""
+          input_size: tuple[float, float], camera: bool = False, readability=None) -> tuple[str, list[Finding]]:
+    """Verdict and findings of a matched page, most severe finding first.
+
+    A camera capture (``camera``) is always turned and scaled: its turn, scale and shift are
+    not judged. Its ``readability`` (:class:`layoutcheck.capture.Readability`) is: too small or
+    too oblique a photo must be taken again (verdict ``retake``).
+    """
     findings: list[Finding] = []
     if match.pose is None or match.support < tolerances.min_support:
         why = match.reason or (f"only {match.support:.0%} of the template's elements agree on one placement "
@@ -113,6 +139,8 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
         return "unrecognised", [Finding("unrecognised", f"Not this form: {why}", value=match.support,
                                         limit=tolerances.min_support)]
     pose = match.pose
+    blurred = camera and too_small(readability, tolerances)
+    unclear = []
     moved_sections = {s.id for s in match.sections if s.status == "moved"}
     for s in match.sections:
         if s.status == "moved":
@@ -124,6 +152,9 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
         if not e.judged or e.status == "ok" or (e.in_moved_section and e.section in moved_sections and e.status == "moved"):
             continue
         who = f"{e.kind.capitalize()} '{e.caption}' ({e.id})" if e.caption else f"{e.kind.capitalize()} ({e.id})"
+        if blurred and e.status in ("missing", "resized"):
+            unclear.append(who)
+            continue
         if e.status == "missing":
             msg = f"{who} is missing"
             val = None
@@ -135,6 +166,26 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
             val = e.size_ratio
         findings.append(Finding("mismatched", msg, element=e.id, value=val,
                                 limit=tolerances.element_size_pct if e.status == "resized" else tolerances.element_tolerance_mm))
+    if camera:
+        if unclear:
+            shown = ", ".join(unclear[:3]) + (f" and {len(unclear) - 3} more" if len(unclear) > 3 else "")
+            findings.append(Finding("retake", f"{len(unclear)} of the form's elements could not be made out at this "
+                                    f"resolution, so are not judged: {shown}", value=float(len(unclear))))
+        if readability is not None:
+            where = part_words(*readability.worst_at, template_size)
+            if readability.worst_dpi < tolerances.min_dpi:
+                findings.append(Finding("retake", f"Photo too small to read: the form's {where} is at "
+                                        f"{readability.worst_dpi:.0f} dpi (at least {tolerances.min_dpi:g} needed); "
+                                        "take it again closer, or at a higher resolution", value=readability.worst_dpi,
+                                        limit=tolerances.min_dpi))
+            if readability.stretch > tolerances.max_stretch:
+                findings.append(Finding("retake", f"Photo taken too obliquely: removing the perspective would stretch "
+                                        f"the form's {where} {readability.stretch:.1f} times as much as its best part "
+                                        f"(at most {tolerances.max_stretch:g}); take it again from straight above",
+                                        value=readability.stretch, limit=tolerances.max_stretch))
+        findings.sort(key=lambda f: SEVERITY[f.verdict])
+        return (findings[0].verdict if findings else "pass"), findings
+    pose = pose.affine_over((0.0, 0.0, *template_size))
     sx, sy = pose.scale_x, pose.scale_y
     worst = max(abs(sx - 1.0), abs(sy - 1.0)) * 100.0
     if worst > tolerances.max_scale_error_pct:
@@ -145,7 +196,7 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
     if abs(rot) > tolerances.max_skew_deg:
         findings.append(Finding("skewed", f"Content {rotation_words(rot)} (limit {tolerances.max_skew_deg:g}°)",
                                 value=rot, limit=tolerances.max_skew_deg))
-    shift = pose.shift_mm(template_size, input_size)
+    shift = match.pose.shift_mm(template_size, input_size)
     dist = float(np.hypot(*shift))
     if dist > tolerances.max_shift_mm:
         findings.append(Finding("shifted", f"Content sits {direction_words(*shift)} off centre on the sheet "
@@ -155,8 +206,12 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
     return verdict, findings
 
 
-def offending(match: Match) -> list[dict]:
-    """Offending elements and sections for the record; a section moved as one is one entry."""
+def offending(match: Match, unjudged: tuple[str, ...] = ()) -> list[dict]:
+    """Offending elements and sections for the record; a section moved as one is one entry.
+
+    Elements whose status is in ``unjudged`` are left out (missing and resized ones of a photo
+    too small to read, see :func:`too_small`).
+    """
     out = []
     moved = {s.id: s for s in match.sections if s.status == "moved"}
     for s in moved.values():
@@ -164,7 +219,7 @@ def offending(match: Match) -> list[dict]:
                     "frame": [round(v, 2) for v in s.frame], "offset_mm": [round(v, 2) for v in s.offset_mm],
                     "size_ratio": None})
     for e in sorted(match.elements, key=people_first):
-        if not e.judged or e.status == "ok":
+        if not e.judged or e.status == "ok" or e.status in unjudged:
             continue
         if e.in_moved_section and e.section in moved and e.status == "moved":
             continue

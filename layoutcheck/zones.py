@@ -220,10 +220,9 @@ def zone_quad(frame: Sequence[float], pose_matrix: np.ndarray) -> np.ndarray:
     Order: the zone's top-left, top-right, bottom-right, bottom-left (in the template's sense,
     so on a page turned by 90 degrees the first corner is no longer the top-left one on screen).
     """
-    x0, top, x1, bottom = frame
-    c = np.array([[x0, top], [x1, top], [x1, bottom], [x0, bottom]], dtype=float)
-    m = np.asarray(pose_matrix, dtype=float)
-    return c @ m[:2, :2].T + m[:2, 2]
+    from .pose import Pose
+
+    return Pose(np.asarray(pose_matrix, dtype=float)).project_frame(frame)
 
 
 def zone_records(zones: Sequence[Zone], pose_matrix: np.ndarray | None, statuses: dict[str, str],

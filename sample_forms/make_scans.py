@@ -39,6 +39,26 @@ SCANNER_PDF = ("scan_310_scanner.pdf", "references/KBH-310_berth_application.pdf
                "image-only scanner PDF, two pages at 150 dpi")
 
 
+#: A phone photo of a filled KBH-101 on a desk (layoutcheck.simulate_camera): colour JPEG with no
+#: usable dpi, seen in perspective, light falling off towards the corners, a soft shadow.
+PHOTO = ("photo_101_filled.jpg", "references/KBH-101_vessel_arrival.pdf",
+         dict(size=(3264, 2448), perspective=0.04, bend_mm=0.3, fill=True, seed=31), "pass",
+         "phone photo of a filled form on a desk, seen in perspective (a camera capture)")
+
+
+def make_photo() -> dict:
+    """Write the demo's photo; its planted truth as an ``expected_scans.json`` entry."""
+    from layoutcheck.simulate_camera import CameraSettings, simulate_photo
+
+    name, src, kw, verdict, note = PHOTO
+    photo = simulate_photo(HERE / src, CameraSettings(**kw))
+    photo.save(INPUTS / name)
+    corners = photo.homography.apply([[0, 0], [photo.page_size_pt[0], 0], [*photo.page_size_pt], [0, photo.page_size_pt[1]]])
+    return {"input": f"inputs/{name}", "template": "KBH-101", "page": 1, "verdict": verdict, "capture": "camera",
+            "homography_px": [[round(float(v), 9) for v in row] for row in photo.homography.matrix],
+            "corners_px": [[round(float(v), 2) for v in c] for c in corners], "note": note}
+
+
 def main() -> None:
     from layoutcheck.simulate import save_scan, simulate_scan
 
@@ -52,6 +72,7 @@ def main() -> None:
     save_scan(scans, INPUTS / name)
     for p, scan in enumerate(scans, start=1):
         expected.append(_entry(name, src, p, verdict, scan, note))
+    expected.append(make_photo())
     (HERE / "expected_scans.json").write_text(json.dumps(expected, indent=1) + "\n", encoding="utf-8")
     for e in expected:
         print(f"{e['input']:34s} page {e['page']}: {e['verdict']}")

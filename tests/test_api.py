@@ -98,10 +98,12 @@ def test_a_camera_capture_has_its_resolution_measured(cli_records, templates):
         pixels = np.asarray(im.convert("L"))
     r = lc.check_page(pixels, templates)  # no dpi: as a camera gives it
     want = cli_records[SCAN.name]
-    # The scan was written at 200 dpi (its pHYs chunk, read by Pillow above).
-    assert r.to_record()["measured_dpi"] == pytest.approx(200, rel=0.005)
-    assert r.verdict == want["verdict"]
-    assert r.pose.rotation_deg == pytest.approx(want["pose"]["rotation_deg"], abs=0.02)
+    rec = r.to_record()
+    assert rec["capture"] == "camera" and want["capture"] == "scan"
+    # The scan was written at 200 dpi (its pHYs chunk, read by Pillow above): the form, measured.
+    assert rec["effective_dpi"]["centre"] == pytest.approx(200, rel=0.01)
+    assert r.template == want["template"] and r.offending == ()
+    assert r.pose.rotation_deg == pytest.approx(want["pose"]["rotation_deg"], abs=0.05)
 
 
 def test_a_damaged_page_raises_naming_file_and_page(tmp_path, templates):

@@ -31,7 +31,7 @@ def test_verify_options_come_in_groups_in_order():
     assert tuple(g) == GROUPS
     assert g["Outputs"] == ["--json", "--report", "--quiet"]
     assert g["Batch"] == ["--jobs", "--resume", "--page-timeout", "--engine", "--scheduler"]
-    assert g["Tolerances"][0] == "--max-skew" and len(g["Tolerances"]) == 6
+    assert g["Tolerances"][0] == "--max-skew" and len(g["Tolerances"]) == 7 and g["Tolerances"][-1] == "--min-dpi"
     # Every option of the command is in exactly one group (only --help stands alone).
     # (the option-group package adds a nameless stand-in option per group heading)
     params = [p for p in main.commands["verify"].params if p.param_type_name == "option" and p.opts]

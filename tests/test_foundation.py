@@ -144,10 +144,14 @@ def test_section_moved_as_one_is_reported_once(tmp_path, vector_template):
 def test_record_has_exactly_the_contract_fields(tmp_path, vector_template):
     rec = check(draw_form(tmp_path / "c.pdf"), vector_template)
     assert set(rec) == {"source", "page", "template", "template_page", "verdict", "findings", "pose", "support",
-                        "offending", "sections", "elapsed_ms", "error"}
-    assert set(rec["pose"]) == {"rotation_deg", "scale", "scale_x", "scale_y", "shift_mm", "matrix"}
+                        "offending", "sections", "elapsed_ms", "error", "capture", "effective_dpi"}
+    assert set(rec["pose"]) == {"rotation_deg", "scale", "scale_x", "scale_y", "shift_mm", "matrix", "model", "projective"}
     assert rec["page"] == 1 and rec["template"] == "T-7" and rec["error"] is None
+    assert rec["capture"] == "scan" and rec["effective_dpi"] is None
     assert np.asarray(rec["pose"]["matrix"]).shape == (2, 3)
+    # A flat page's full matrix is its affine one with the last row (0, 0, 1).
+    assert np.allclose(np.asarray(rec["pose"]["projective"])[:2], rec["pose"]["matrix"], atol=1e-6)
+    assert np.asarray(rec["pose"]["projective"])[2].tolist() == [0.0, 0.0, 1.0]
 
 
 def test_matrix_maps_template_points_to_input_points(tmp_path, vector_template):

@@ -28,14 +28,17 @@ def test_resolution_snaps_to_usual_values(stated, snapped):
     assert snap_dpi(stated) == snapped
 
 
-def test_image_without_resolution_needs_dpi(tmp_path):
+def test_image_without_resolution_is_read_with_a_working_one(tmp_path):
     path = tmp_path / "nodpi.png"
-    Image.fromarray(page_image()).save(path)  # PNG without a pHYs chunk
-    (err,) = list(read_pages(path))
-    assert isinstance(err, PageError)
-    assert err.message == "nodpi.png page 1: resolution unknown (the file states no dpi, or one below 72); give --dpi N"
+    img = page_image()
+    Image.fromarray(img).save(path)  # PNG without a pHYs chunk
+    (photo,) = list(read_pages(path))
+    # No stated resolution: a camera capture, its long side taken as 11.35 in (between A4's
+    # 11.69 in, ISO 216, and Letter's 11 in, ANSI).
+    assert isinstance(photo, RasterPage) and not photo.dpi_stated
+    assert photo.dpi == pytest.approx(max(img.shape) / 11.35)
     (page,) = list(read_pages(path, ReadLimits(dpi=200)))
-    assert isinstance(page, RasterPage) and page.dpi == 200
+    assert isinstance(page, RasterPage) and page.dpi == 200 and page.dpi_stated
     # Size in points from pixels and dpi: 400 px at 200 dpi are 2 in = 144 pt (1 pt = 1/72 in).
     assert page.width == pytest.approx(144.0)
 

@@ -39,6 +39,7 @@ VERDICT_TITLES = {
     "error": "Could not be checked",
     "unrecognised": "Not recognised as a known form",
     "mismatched": "Layout differs from the form",
+    "retake": "Photo to be taken again",
     "rescaled": "Printed at the wrong size",
     "skewed": "Turned on the sheet",
     "shifted": "Moved on the sheet",
@@ -52,6 +53,8 @@ VERDICT_ADVICE = {
                     "old version no template was learned for.",
     "mismatched": "Compare the marked elements with the form. If this version of the form is "
                   "valid, learn a template for it; otherwise send the page back.",
+    "retake": "The photo shows the form too small or too obliquely to be read reliably. Ask for a "
+              "new photo taken from straight above, closer, or a scan.",
     "rescaled": "The page was printed or scanned at another size. Reprint at 100 % (no fitting "
                 "to the paper) or rescale before OCR.",
     "skewed": "Deskew the page before OCR, or scan it again laid straight.",
@@ -145,17 +148,22 @@ def shift_sentence(pose: dict, tol: Tolerances) -> str:
 
 # -- geometry ---------------------------------------------------------------------------------
 def pose_matrix(rec: dict) -> np.ndarray | None:
+    """The record's 3 x 3 pose (the ``projective`` matrix; records without it: the 2 x 3 ``matrix``)."""
     p = rec.get("pose")
-    if not p or not p.get("matrix"):
+    if not p or not (p.get("projective") or p.get("matrix")):
         return None
+    if p.get("projective"):
+        return np.asarray(p["projective"], dtype=float)
     m = np.eye(3)
     m[:2] = np.asarray(p["matrix"], dtype=float)
     return m
 
 
 def apply(m: np.ndarray, pts: np.ndarray) -> np.ndarray:
-    pts = np.asarray(pts, dtype=float).reshape(-1, 2)
-    return pts @ m[:2, :2].T + m[:2, 2]
+    """Template points through the record's pose (with the perspective division)."""
+    from ..pose import Pose
+
+    return Pose(m).apply(pts)
 
 
 def frame_corners(frame: Sequence[float], angle: float | None = 0.0) -> np.ndarray:
@@ -330,8 +338,17 @@ def page_view(index: int, rec: dict, templates: dict, tol: Tolerances, base_dir,
             "scale_xy": f"{pose['scale_x']:.4f} × {pose['scale_y']:.4f}",
             "shift": f"{_fmt_signed(pose['shift_mm'][0], 1)}, {_fmt_signed(pose['shift_mm'][1], 1)}",
         }
-        view["sentences"] = [turn_sentence(pose["rotation_deg"], tol), scale_sentence(pose, tol),
-                             shift_sentence(pose, tol)]
+        if rec.get("capture") == "camera":
+            # A photo is always turned and scaled: said, not judged.
+            eff = rec.get("effective_dpi") or {}
+            view["sentences"] = [f"A photo of the form (seen in perspective, corrected): turned "
+                                 f"{abs(pose['rotation_deg']):.1f}°, shown at {pose['scale']:.1%}; not judged for a photo."]
+            if eff:
+                view["sentences"].append(f"Effective resolution {eff['centre']:.0f} dpi at the centre, "
+                                         f"{eff['worst']:.0f} dpi at its worst point (at least {tol.min_dpi:g} needed).")
+        else:
+            view["sentences"] = [turn_sentence(pose["rotation_deg"], tol), scale_sentence(pose, tol),
+                                 shift_sentence(pose, tol)]
     for k, o in enumerate(rec.get("offending", []), start=1):
         off = o.get("offset_mm")
         view["offending"].append({

@@ -141,6 +141,8 @@ class CheckSettings:
     normalise_dpi: float | None = None
     #: ``png`` or ``tiff``.
     normalise_format: str = "png"
+    #: Let a normalised image replace the file of the same name (only a resumed run does).
+    normalise_replace: bool = False
 
 
 def judged_mask(tp_elements, input_elements: PageElements) -> np.ndarray:
@@ -340,7 +342,8 @@ def handoff(rec: dict, page, found: PageElements, tp: TemplatePage, match: Match
             from .normalise import normalise_page
 
             rec["normalised"] = normalise_page(page, match.pose, (tp.width, tp.height), settings.normalise_dir,
-                                               settings.normalise_dpi, settings.normalise_format)
+                                               settings.normalise_dpi, settings.normalise_format,
+                                               replace=settings.normalise_replace)
     return rec
 
 

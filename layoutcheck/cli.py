@@ -1,7 +1,8 @@
 """Command line: ``layoutcheck learn``, ``layoutcheck verify``, ``layoutcheck demo``.
 
 Thin on purpose: everything a library user would also need lives in the modules it calls.
-Exit codes: 0 every page passed, 1 some page did not, 2 usage error or unreadable template.
+Exit codes (:mod:`layoutcheck.exitcodes`): 0 every page passed, 1 some page did not, 2 usage
+error or unreadable template, 3 records or report incomplete (a write failed, or interrupted).
 """
 
 from __future__ import annotations
@@ -13,17 +14,23 @@ from pathlib import Path
 import click
 
 from . import __version__
+from .exitcodes import EXIT_FLAGGED, EXIT_INCOMPLETE, EXIT_PASS, EXIT_USAGE, HELP as EXIT_HELP
 from .sources import ReadLimits
 from .template import TemplateError, load_template, save_template
 from .verdict import VERDICTS, Tolerances
 
-EXIT_PASS, EXIT_FLAGGED, EXIT_USAGE = 0, 1, 2
 
 
 class TemplateProblem(click.ClickException):
     """An unreadable template: exit code 2, one line."""
 
     exit_code = EXIT_USAGE
+
+
+class Incomplete(click.ClickException):
+    """Records or report could not be written: exit code 3, one line."""
+
+    exit_code = EXIT_INCOMPLETE
 
 
 def load_templates(paths) -> list:
@@ -167,20 +174,31 @@ def handoff_options(f):
 
 
 def batch_options(f):
-    """``--jobs``, ``--resume``, ``--page-timeout``, ``--engine``, ``--scheduler``, passed on as
-    one ``batch`` dict (see :mod:`layoutcheck.batch`)."""
+    """``--jobs``, ``--resume``, ``--engine``, ``--scheduler`` and the limits (``--page-timeout``,
+    ``--max-memory``, ``--max-content-mb``, ``--max-drawing-ops``), passed on as one ``batch``
+    dict (see :mod:`layoutcheck.batch`)."""
     import functools
 
+    from .batch import MEMORY_MB, PAGE_TIMEOUT_S
+
     @functools.wraps(f)
-    def inner(*args, jobs, resume, page_timeout, engine, scheduler, **kwargs):
-        batch = {"jobs": jobs, "resume": resume, "page_timeout": page_timeout, "engine": engine, "scheduler": scheduler}
+    def inner(*args, jobs, resume, page_timeout, max_memory, max_content_mb, max_drawing_ops, engine, scheduler, **kwargs):
+        batch = {"jobs": jobs, "resume": resume, "page_timeout": page_timeout or None, "memory_mb": max_memory or None,
+                 "max_content_bytes": int(max_content_mb * 1024 * 1024), "max_drawing_ops": max_drawing_ops,
+                 "engine": engine, "scheduler": scheduler}
         return f(*args, batch=batch, **kwargs)
 
     inner = click.option("--scheduler", metavar="ADDRESS", help="Dask scheduler to run on, e.g. tcp://scheduler-host:8786 (with --engine dask).")(inner)
     inner = click.option("--engine", type=click.Choice(["local", "dask"]), default="local", show_default=True,
                          help="Run pages in local worker processes, or on Dask distributed (a local cluster unless --scheduler).")(inner)
-    inner = click.option("--page-timeout", type=click.FloatRange(min=0, min_open=True), default=None, metavar="SECONDS",
-                         help="Most seconds one page may take; its worker is then replaced and the page gets an error record.")(inner)
+    inner = click.option("--max-drawing-ops", type=click.IntRange(min=1), default=ReadLimits.max_drawing_ops, show_default=True,
+                         metavar="N", help="Most path operations drawn on one PDF page; a page with more gets an error record.")(inner)
+    inner = click.option("--max-content-mb", type=click.FloatRange(min=0, min_open=True), default=ReadLimits.max_content_bytes / 1024 / 1024,
+                         show_default=True, metavar="MB", help="Largest decoded content of one PDF page; a page with more gets an error record.")(inner)
+    inner = click.option("--max-memory", type=click.IntRange(min=0), default=MEMORY_MB, show_default=True, metavar="MB",
+                         help="Memory per worker process; a page that needs more gets an error record and its worker is replaced (0: no limit).")(inner)
+    inner = click.option("--page-timeout", type=click.FloatRange(min=0), default=PAGE_TIMEOUT_S, show_default=True, metavar="SECONDS",
+                         help="Most seconds one page may take; its worker is then replaced and the page gets an error record (0: no limit).")(inner)
     inner = click.option("--resume", is_flag=True, help="Continue an interrupted run: keep the records in --json FILE, check only the pages not there.")(inner)
     inner = click.option("-j", "--jobs", type=click.IntRange(min=1), default=1, show_default=True, help="Pages checked at once, in worker processes.")(inner)
     return inner
@@ -212,7 +230,7 @@ def _progress_bar():
     return show, end
 
 
-@main.command()
+@main.command(epilog=EXIT_HELP)
 @click.argument("template", type=click.Path(exists=True))
 @click.argument("inputs", nargs=-1, required=True)
 @click.option("--json", "json_out", type=click.Path(dir_okay=False, allow_dash=True), help="Write JSON Lines records here ('-' for standard output).")
@@ -234,13 +252,14 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     INPUTS are files, folders (searched recursively), globs, or '-' for a list of paths on
     standard input. Each page gets one JSON Lines record, in input and page order.
     """
-    from .batch import BatchOptions, expand_inputs, run_batch
+    from .batch import BatchOptions, OutputError, expand_inputs, run_batch
     from .check import CheckSettings
 
     templates = load_templates([template, *more_templates])
     tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support)
     settings = CheckSettings(tolerances=tol, **handoff)
-    limits = ReadLimits(max_pixels=max_pixels, max_pages=max_pages, dpi=dpi, password=password)
+    limits = ReadLimits(max_pixels=max_pixels, max_pages=max_pages, dpi=dpi, password=password,
+                        max_content_bytes=batch["max_content_bytes"], max_drawing_ops=batch["max_drawing_ops"])
     if batch["resume"] and (not json_out or json_out == "-"):
         raise click.UsageError("--resume needs --json FILE (the run's output file)")
     if batch["scheduler"] and batch["engine"] != "dask":
@@ -249,30 +268,36 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     if not files:
         raise click.UsageError("no input files given")
     try:
-        options = BatchOptions(jobs=batch["jobs"], page_timeout=batch["page_timeout"], engine=batch["engine"],
-                               scheduler=batch["scheduler"], resume=batch["resume"], keep_records=bool(report_out) or not quiet)
+        options = BatchOptions(jobs=batch["jobs"], page_timeout=batch["page_timeout"], memory_mb=batch["memory_mb"],
+                               engine=batch["engine"], scheduler=batch["scheduler"], resume=batch["resume"],
+                               keep_records=bool(report_out) or not quiet)
     except ValueError as exc:
         raise click.UsageError(str(exc)) from None
     show, end = _progress_bar() if not quiet else (None, lambda: None)
     try:
         result = run_batch(files, templates, settings, limits, output=json_out, options=options, progress=show)
+    except OutputError as exc:
+        raise Incomplete(str(exc)) from None
     finally:
         if show is not None:
             end()
     records = result.records
     if report_out:
         _write_report(report_out, records, templates, tol)
-    out = click.get_text_stream("stderr") if json_out == "-" else click.get_text_stream("stdout")
+    out = sys.stderr if json_out == "-" else sys.stdout
     if not quiet and records:
         click.echo("\n".join(summary_table(records).split("\n")[:-1]), file=out)
     click.echo(result.summary(), file=out)
-    sys.exit(EXIT_PASS if result.all_pass else EXIT_FLAGGED)
+    sys.exit(EXIT_INCOMPLETE if result.interrupted else EXIT_PASS if result.all_pass else EXIT_FLAGGED)
 
 
 def _write_report(path, records, templates, tolerances):
     from .report import write_report
 
-    write_report(path, records, templates, tolerances)
+    try:
+        write_report(path, records, templates, tolerances)
+    except OSError as exc:
+        raise Incomplete(f"{exc.filename or path}: report could not be written ({exc.strerror or type(exc).__name__})") from None
 
 
 @main.command()

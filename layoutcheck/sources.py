@@ -16,7 +16,10 @@ from __future__ import annotations
 
 import contextlib
 import os
+import re
 import warnings
+import zlib
+from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Iterator, Union
@@ -42,6 +45,15 @@ class ReadLimits:
     max_pixels: int = 300_000_000
     #: Most pages read from one file.
     max_pages: int = 2000
+    #: Largest decoded content of one PDF page (its content streams and the form XObjects it
+    #: draws), in bytes. A form page holds tens of KB; a dense vector drawing a few MB. 16 MB
+    #: admits those and refuses a compressed "bomb" before anything parses it, since parsing
+    #: runs at about 1 MB/s and 0.5 GB of memory per MB (``bench/bench_hostile.py``).
+    max_content_bytes: int = 16 * 1024 * 1024
+    #: Most path operations (move, line, curve, rectangle, paint) drawn on one PDF page, counting
+    #: a form XObject once per use. A ruled form has a few thousand; 1 million takes about a
+    #: minute to read (``bench/bench_hostile.py``).
+    max_drawing_ops: int = 1_000_000
     #: Resolution to assume for images that do not state one; None means refuse them.
     dpi: float | None = None
     #: Password for encrypted PDFs.
@@ -360,24 +372,48 @@ class _PdfDocument(Document):
             self._open_page = None
 
     def page(self, n: int) -> Page:
+        """Page ``n``: content limits first, then an image-only page is rendered by pypdfium2
+        alone; only a born-digital page has its content parsed by pdfplumber."""
         self.release()
         try:
-            pl = self._plumber_page(n)
+            obj = self._page_object(n)
+            problem = content_problem(obj, self._pdf.doc, self._limits)
+            if problem:
+                return PageError(self.source, n, f"{where(self.source, n)}: {problem}")
+            scan = self._scan_check(n)
+            if isinstance(scan, PageError):
+                return scan
+            if scan is not None:
+                return self._render(n, scan)
+            import pdfplumber.page
+
+            pl = pdfplumber.page.Page(self._pdf, obj, page_number=n)
             self._open_page = pl
             width, height, rot = _display_size(pl)
-            if is_scanned_page(pl):
-                dpi = _image_dpi(pl, width)
-                self.release()
-                return self._render(n, dpi)
             return VectorPage(self.source, n, width, height, pl, rot, self.source)
         except Exception as exc:
             self.release()
             return PageError(self.source, n, f"{where(self.source, n)}: damaged page ({_one_line(exc)})")
 
-    def _plumber_page(self, n: int):
-        """Page ``n``, walking the page tree only as far as needed (a long file costs no more
-        than its pages read)."""
-        import pdfplumber.page
+    def _pdfium_doc(self):
+        import pypdfium2 as pdfium
+
+        if self._pdfium is None:
+            self._pdfium = pdfium.PdfDocument(self.source, password=self._limits.password)
+        return self._pdfium
+
+    def _scan_check(self, n: int) -> float | PageError | None:
+        """The dpi to render page ``n`` at when it only wraps a scanned image, else None; a
+        :class:`PageError` when one of its images is over the pixel limit."""
+        page = self._pdfium_doc()[n - 1]
+        try:
+            return scanned_page_dpi(page, self.source, n, self._limits)
+        finally:
+            page.close()
+
+    def _page_object(self, n: int):
+        """pdfminer's page ``n``, walking the page tree only as far as needed (a long file costs
+        no more than its pages read)."""
         from pdfminer.pdfpage import PDFPage
 
         if self._walker is None:
@@ -387,17 +423,16 @@ class _PdfDocument(Document):
             if obj is None:
                 raise IndexError(f"the page tree holds {len(self._seen)} pages")
             self._seen.append(obj)
-        return pdfplumber.page.Page(self._pdf, self._seen[n - 1], page_number=n)
+        return self._seen[n - 1]
 
     def _render(self, n: int, dpi: float) -> Page:
         import pypdfium2 as pdfium
 
-        if self._pdfium is None:
-            try:
-                self._pdfium = pdfium.PdfDocument(self.source, password=self._limits.password)
-            except pdfium.PdfiumError as exc:
-                return PageError(self.source, n, f"{where(self.source, n)}: could not be rendered ({_one_line(exc)})")
-        return _render_page(self._pdfium, self.source, n, self._limits, dpi)
+        try:
+            doc = self._pdfium_doc()
+        except pdfium.PdfiumError as exc:
+            return PageError(self.source, n, f"{where(self.source, n)}: could not be rendered ({_one_line(exc)})")
+        return _render_page(doc, self.source, n, self._limits, dpi)
 
     def close(self) -> None:
         self.release()
@@ -439,32 +474,153 @@ def _display_size(pl) -> tuple[float, float, int]:
     return float(x1 - x0), float(bottom - top), rot
 
 
-def is_scanned_page(pl) -> bool:
-    """A page that only wraps a scanned image: one image over most of it and no drawn rules.
+def scanned_page_dpi(page, source: str, n: int, limits: ReadLimits) -> float | PageError | None:
+    """Resolution of a pypdfium2 page that only wraps a scanned image, else None.
 
-    An invisible text layer (from an earlier OCR) does not make it born-digital.
+    Such a page holds one image over most of it (70 %) and few drawn paths (under 5); an
+    invisible text layer (from an earlier OCR) does not make it born-digital. Its resolution is
+    the one pdfium reads off the largest image's pixel size and placement. An image whose
+    stated size is over ``limits.max_pixels`` gives a :class:`PageError` before anything
+    decodes it, on any page.
     """
-    images = pl.images
-    if not images:
-        return False
-    area = float(pl.width * pl.height)
-    big = max((float(i["x1"] - i["x0"]) * float(i["bottom"] - i["top"]) for i in images), default=0.0)
-    drawn = len(pl.lines) + len(pl.rects) + len(pl.curves)
-    return big >= 0.7 * area and drawn < 5
+    import pypdfium2 as pdfium
+
+    w, h = page.get_size()
+    area = float(w * h)
+    paths, big, dpi = 0, 0.0, None
+    for obj in page.get_objects(max_depth=4):
+        if obj.type == pdfium.raw.FPDF_PAGEOBJ_PATH:
+            paths += 1
+        elif obj.type == pdfium.raw.FPDF_PAGEOBJ_IMAGE:
+            meta = obj.get_metadata()
+            if int(meta.width) * int(meta.height) > limits.max_pixels:
+                return PageError(source, n, f"{where(source, n)}: an image of {meta.width} x {meta.height} pixels is over the "
+                                            f"limit of {limits.max_pixels:,} pixels; not decoded")
+            x0, y0, x1, y1 = obj.get_bounds()
+            size = float(x1 - x0) * float(y1 - y0)
+            if size > big:
+                big, dpi = size, max(float(meta.horizontal_dpi), float(meta.vertical_dpi))
+    if big >= 0.7 * area and paths < 5:
+        return snap_dpi(dpi) or 200.0
+    return None
 
 
-def _image_dpi(pl, page_width: float) -> float:
-    """Resolution of the page's largest image: its pixel width over its width in inches."""
-    img = max(pl.images, key=lambda i: float(i["x1"] - i["x0"]) * float(i["bottom"] - i["top"]))
-    px_w, px_h = img.get("srcsize", (0, 0))
-    w_in = float(img["x1"] - img["x0"]) / POINTS_PER_INCH
-    h_in = float(img["bottom"] - img["top"]) / POINTS_PER_INCH
-    rot = int(pl.rotation or 0) % 360
-    # On a page turned by /Rotate the image's pixel rows may run along the page's other side.
-    if rot in (90, 270):
-        w_in, h_in = h_in, w_in
-    dpi = max(px_w / w_in if w_in else 0, px_h / h_in if h_in else 0)
-    return snap_dpi(dpi) or 200.0
+#: Path construction and painting operators of a PDF content stream (ISO 32000-1, 8.5.2, 8.5.3),
+#: as whole tokens: a delimiter or white space before and after.
+_DRAW_OPS = re.compile(rb"(?<![^\s\])>])(?:re|[mlcvyhSsFn]|[fBb]\*?)(?=[\s\[(/<%]|$)")
+#: ``/Name Do``: draw the XObject ``Name`` (ISO 32000-1, 8.8).
+_DO = re.compile(rb"/([^\s/\[\]()<>{}%]+)\s*Do(?=[\s\[(/<%]|$)")
+
+
+class _OverLimit(Exception):
+    pass
+
+
+def content_problem(page_obj, doc, limits: ReadLimits) -> str | None:
+    """Why a PDF page's content is over a limit, or None, found before anything parses it.
+
+    The page's content streams, and those of the form XObjects it draws (recursively), are
+    inflated with a bounded decoder (never more than ``limits.max_content_bytes`` in all), and
+    their path operators counted, a form once per use (so nested forms that multiply cannot
+    hide their cost).
+    """
+    from pdfminer.pdftypes import PDFStream, resolve1
+
+    budget = [limits.max_content_bytes]
+    memo: dict[int, int] = {}
+
+    def decoded(stream) -> bytes:
+        data = _bounded_data(stream, budget[0])
+        if data is None:
+            raise _OverLimit(f"content is over the limit of {_mb(limits.max_content_bytes)} decoded (--max-content-mb); not read")
+        budget[0] -= len(data)
+        return data
+
+    def ops_of(data: bytes, resources, path: tuple) -> int:
+        count = len(_DRAW_OPS.findall(data))
+        resources = resolve1(resources)
+        xobjects = resolve1(resources.get("XObject")) if isinstance(resources, dict) else None
+        if not isinstance(xobjects, dict):
+            return count
+        for name, uses in Counter(_DO.findall(data)).items():
+            ref = xobjects.get(name.decode("latin-1"))
+            form = resolve1(ref)
+            if not (isinstance(form, PDFStream) and getattr(resolve1(form.attrs.get("Subtype")), "name", None) == "Form"):
+                continue
+            key = getattr(ref, "objid", id(form))
+            if key in path or len(path) > 12:
+                raise _OverLimit("form XObjects draw each other in a loop; not read")
+            if key not in memo:
+                memo[key] = ops_of(decoded(form), form.attrs.get("Resources") or resources, path + (key,))
+            count += uses * memo[key]
+            if count > limits.max_drawing_ops:
+                break
+        return count
+
+    try:
+        contents = page_obj.contents or []
+        data = b"\n".join(decoded(resolve1(s)) for s in contents if isinstance(resolve1(s), PDFStream))
+        ops = ops_of(data, page_obj.resources, ())
+    except _OverLimit as exc:
+        return str(exc)
+    if ops > limits.max_drawing_ops:
+        return (f"draws over {limits.max_drawing_ops:,} path operations, over the limit (--max-drawing-ops); not read")
+    return None
+
+
+def _inflate(raw: bytes, limit: int) -> bytes | None:
+    """Flate-decoded ``raw``, or None when that is more than ``limit`` bytes.
+
+    Fed in steps, each allowed only what is left of the limit. Damaged data yields what comes
+    before the damage (as pdfminer's own decoder does).
+    """
+    d = zlib.decompressobj()
+    out = bytearray()
+    step = 1 << 16
+    try:
+        for pos in range(0, len(raw), step):
+            out += d.decompress(raw[pos:pos + step], limit + 1 - len(out))
+            while d.unconsumed_tail and len(out) <= limit:
+                out += d.decompress(d.unconsumed_tail, limit + 1 - len(out))
+            if len(out) > limit:
+                return None
+            if d.eof:
+                break
+    except zlib.error:
+        pass
+    return bytes(out)
+
+
+def _mb(nbytes: int) -> str:
+    return f"{nbytes / (1024 * 1024):g} MB"
+
+
+def _bounded_data(stream, limit: int) -> bytes | None:
+    """A stream's decoded bytes, or None when they would be more than ``limit``.
+
+    Flate (the filter content streams use in practice) is inflated in steps that stop at the
+    limit, so a small stream that would inflate to gigabytes costs no more than ``limit``. Other
+    filters go through pdfminer's decoder, refused beforehand when even their input is over.
+    """
+    filters = [getattr(f, "name", f) for f, _ in stream.get_filters()]
+    if stream.data is not None:  # decoded already
+        return stream.data if len(stream.data) <= limit else None
+    raw = stream.rawdata
+    if raw is None:
+        return b""
+    if stream.decipher:  # an encrypted file: its streams are deciphered before decoding
+        raw = stream.decipher(stream.objid, stream.genno, raw, stream.attrs)
+    if all(f in ("FlateDecode", "Fl") for f in filters):
+        data = raw
+        for _ in filters:
+            data = _inflate(data, limit)
+            if data is None:
+                return None
+        return data
+    if len(raw) > limit:
+        return None
+    data = stream.get_data()
+    return None if len(data) > limit else data
 
 
 def render_pdf_page(source: str, n: int, limits: ReadLimits, dpi: float, oversample: int = 1) -> Page:

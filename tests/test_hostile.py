@@ -214,7 +214,7 @@ def test_page_timeout_replaces_the_worker(tmp_path, templates):
                     options=BatchOptions(jobs=1, page_timeout=1.5, keep_records=True))
     verdicts = [r["verdict"] for r in res.records]
     assert verdicts == ["pass", "error", "pass"]  # the third page ran on a fresh worker
-    assert "slow.pdf page 1: took longer than 1.5 s" in res.records[1]["error"]
+    assert "slow.pdf page 1: took longer than the page time limit of 1.5 s (--page-timeout)" in res.records[1]["error"]
 
 
 # -- all in one batch -----------------------------------------------------------------------------

@@ -325,8 +325,9 @@ def page_set_findings(records: list[dict], prior: list[dict], templates: Sequenc
 #: and still stops a page that would take minutes.
 PAGE_TIMEOUT_S = 60.0
 #: Memory per worker process by default, MB (see :mod:`layoutcheck.worker` for what is counted).
-#: A worker checking an A3 scan at 600 dpi peaks near 700 MB of data (``bench/bench_hostile.py``);
-#: 1536 MB leaves twice that and keeps 8 workers within 12 GB.
+#: An idle worker holds about 150 MB; checking an A3 scan at 600 dpi (70 million pixels) needs
+#: between 384 and 512 MB (``bench/bench_hostile.py``). 1536 MB is three times that, and keeps
+#: 8 workers within 12 GB.
 MEMORY_MB = 1536
 #: Seconds running pages get to finish after SIGTERM or SIGINT.
 GRACE_S = 10.0
@@ -632,8 +633,13 @@ def _settle(sched: "_Scheduler", order: _Order, task: tuple, out) -> None:
 
 
 def _worker_env() -> dict:
-    """The environment of a worker process: this package importable, as in the parent."""
+    """The environment of a worker process: this package importable, as in the parent, and one
+    BLAS thread (a worker checks one page at a time; the jobs are the parallelism). The BLAS
+    thread pool's buffers count against the memory limit, and grow with the number of cores:
+    with them, an idle worker holds 373 MB of data on 2 cores (``bench/bench_hostile.py``)."""
     env = dict(os.environ)
+    for name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        env.setdefault(name, "1")
     here = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
     env["PYTHONPATH"] = here + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
     return env

@@ -235,6 +235,8 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
         return unrecognised_record(page.source, page.page, f"Not a form: {problem}", t0)
     try:
         found = extract(page)
+    except MemoryError:  # the worker answers for its memory limit
+        raise
     except Exception as exc:  # an extractor bug on one page must not end the batch
         msg = f"{where(page.source, page.page)}: elements could not be read ({type(exc).__name__}: {exc})"
         return error_record(page.source, page.page, msg, (time.perf_counter() - t0) * 1000)

@@ -46,14 +46,15 @@ class ReadLimits:
     #: Most pages read from one file.
     max_pages: int = 2000
     #: Largest decoded content of one PDF page (its content streams and the form XObjects it
-    #: draws), in bytes. A form page holds tens of KB; a dense vector drawing a few MB. 16 MB
-    #: admits those and refuses a compressed "bomb" before anything parses it, since parsing
-    #: runs at about 1 MB/s and 0.5 GB of memory per MB (``bench/bench_hostile.py``).
-    max_content_bytes: int = 16 * 1024 * 1024
+    #: draws), in bytes. A form page holds tens of KB. 8 MB refuses a compressed "bomb" (a small
+    #: file whose content inflates to hundreds of MB) before anything parses it; it is inflated
+    #: only as far as the limit.
+    max_content_bytes: int = 8 * 1024 * 1024
     #: Most path operations (move, line, curve, rectangle, paint) drawn on one PDF page, counting
-    #: a form XObject once per use. A ruled form has a few thousand; 1 million takes about a
-    #: minute to read (``bench/bench_hostile.py``).
-    max_drawing_ops: int = 1_000_000
+    #: a form XObject once per use. A ruled form has a few thousand. Reading runs at about 18,000
+    #: a second and takes about 1.1 KB of memory each (``bench/bench_hostile.py``), so 500,000
+    #: stays near half the default page time and memory limits.
+    max_drawing_ops: int = 500_000
     #: Resolution to assume for images that do not state one; None means refuse them.
     dpi: float | None = None
     #: Password for encrypted PDFs.
@@ -190,6 +191,8 @@ def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pa
         if p.suffix.lower() in PDF_EXTENSIONS:
             return _failed(source, "not a PDF (no %PDF header)")
         return _ImageDocument.open(source, limits, pages)
+    except MemoryError:  # the worker answers for its memory limit
+        raise
     except Exception as exc:  # last line of defence: a reader bug must not end the batch
         return _failed(source, f"could not be read ({type(exc).__name__}: {_one_line(exc)})")
 
@@ -242,6 +245,8 @@ class _ImageDocument(Document):
             return _failed(source, f"image is over the pixel limit; not decoded ({_one_line(exc)})")
         except UnidentifiedImageError:
             return _failed(source, "not an image this tool reads (PNG, JPEG, TIFF or PDF)")
+        except MemoryError:  # the worker answers for its memory limit
+            raise
         except Exception as exc:
             return _failed(source, f"image header is damaged ({_one_line(exc)})")
         try:
@@ -253,6 +258,8 @@ class _ImageDocument(Document):
     def page(self, n: int) -> Page:
         try:
             self._img.seek(n - 1)
+        except MemoryError:  # the worker answers for its memory limit
+            raise
         except Exception as exc:
             return PageError(self.source, n, f"{where(self.source, n)}: frame could not be reached ({_one_line(exc)})")
         return _image_page(self.source, n, self._img, self._limits)
@@ -302,6 +309,8 @@ def _image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
         # Pillow hands the pixels over as a bytes copy of its buffer: the array is the page's own
         # (read-only: nothing downstream writes into a page).
         arr = np.asarray(im, dtype=np.uint8)
+    except MemoryError:  # the worker answers for its memory limit
+        raise
     except Exception as exc:
         return PageError(source, n, f"{where(source, n)}: image data is damaged ({_one_line(exc)})")
     return RasterPage(source, n, arr, float(dpi), bitonal)
@@ -344,6 +353,8 @@ class _PdfDocument(Document):
 
         try:
             pdf = pdfplumber.open(source, password=limits.password or "")
+        except MemoryError:  # the worker answers for its memory limit
+            raise
         except Exception as exc:
             if _is_password_error(exc):
                 return _failed(source, "PDF is " + ("encrypted and the password is wrong" if limits.password
@@ -353,6 +364,8 @@ class _PdfDocument(Document):
             count = _pdfium_count(source, limits)
             if count is None:
                 count = len(pdf.pages)
+        except MemoryError:  # the worker answers for its memory limit
+            raise
         except Exception as exc:
             with contextlib.suppress(Exception):
                 pdf.close()
@@ -391,6 +404,8 @@ class _PdfDocument(Document):
             self._open_page = pl
             width, height, rot = _display_size(pl)
             return VectorPage(self.source, n, width, height, pl, rot, self.source)
+        except MemoryError:  # the worker answers for its memory limit
+            raise
         except Exception as exc:
             self.release()
             return PageError(self.source, n, f"{where(self.source, n)}: damaged page ({_one_line(exc)})")
@@ -666,6 +681,8 @@ def _render_page(doc, source: str, n: int, limits: ReadLimits, dpi: float) -> Pa
         if arr.ndim == 3:
             arr = arr[..., 0]
         return RasterPage(source, n, arr, float(dpi), False)
+    except MemoryError:  # the worker answers for its memory limit
+        raise
     except Exception as exc:
         return PageError(source, n, f"{where(source, n)}: could not be rendered ({_one_line(exc)})")
     finally:

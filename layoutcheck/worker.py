@@ -27,6 +27,7 @@ import os
 import resource
 import signal
 import sys
+import time
 
 #: Exit code of a worker that ran out of memory after answering.
 RETIRED = 75
@@ -73,6 +74,7 @@ def serve(conn_in, conn_out) -> None:
                 break
             kind, i, path, page = task
             retire = False
+            t0 = time.perf_counter()
             try:
                 if kind == "plan":
                     out = batch.plan_file(path, limits)
@@ -80,7 +82,7 @@ def serve(conn_in, conn_out) -> None:
                     out = batch.check_one(path, page, templates, settings, limits)
             except MemoryError:
                 batch.forget_document()
-                out = batch.failed_task(kind, path, page, memory_message(memory_mb))
+                out = batch.failed_task(kind, path, page, memory_message(memory_mb), time.perf_counter() - t0)
                 retire = True
             conn_out.send((kind, i, page, out, retire))
             if retire:

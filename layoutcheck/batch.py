@@ -210,6 +210,10 @@ class RecordSink:
 
     def write(self, record: dict) -> None:
         line = json.dumps(record, ensure_ascii=False) + "\n"
+        try:
+            line.encode("utf-8")
+        except UnicodeEncodeError:  # a file name that is not UTF-8: written as JSON escapes
+            line = json.dumps(record) + "\n"
         if self.stream is not None:
             try:
                 self.stream.write(line)

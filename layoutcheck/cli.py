@@ -15,7 +15,7 @@ import click
 
 from . import __version__
 from .exitcodes import EXIT_FLAGGED, EXIT_INCOMPLETE, EXIT_PASS, EXIT_USAGE, HELP as EXIT_HELP
-from .sources import ReadLimits
+from .sources import ReadLimits, printable
 from .template import TemplateError, load_template, save_template
 from .verdict import VERDICTS, Tolerances
 
@@ -57,7 +57,7 @@ def summary_table(records: list[dict]) -> str:
         what = r["error"] or "; ".join(f["message"] for f in r["findings"][:2]) or "-"
         shift = p.get("shift_mm")
         rows.append((
-            os.path.basename(r["source"]), str(r["page"] if r["page"] is not None else "-"), r["verdict"],
+            printable(os.path.basename(r["source"])), str(r["page"] if r["page"] is not None else "-"), r["verdict"],
             r.get("template") or "-",
             f"{p['rotation_deg']:+.2f}" if p else "-",
             f"{p['scale']:.4f}" if p else "-",

@@ -117,9 +117,15 @@ class InputError(Exception):
     """Bad input: the message is one line naming the file and page."""
 
 
+def printable(name: str) -> str:
+    """A file name as one printable line: control characters (a newline in a name) and bytes
+    that are not UTF-8 are written as escapes."""
+    return "".join(c if c.isprintable() else repr(c)[1:-1] for c in name)
+
+
 def where(source: str, page: int | None) -> str:
     """``scan.tif page 3`` or ``scan.tif`` for messages."""
-    name = os.path.basename(source) or source
+    name = printable(os.path.basename(source) or source)
     return f"{name} page {page}" if page is not None else name
 
 
@@ -180,9 +186,13 @@ def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pa
     p = Path(source)
     try:
         if not p.exists():
+            if os.path.islink(source):
+                return _failed(source, "a symbolic link that leads nowhere (a loop, or its target is missing)")
             return _failed(source, "no such file")
         if p.is_dir():
             return _failed(source, "is a folder, not a file")
+        if not p.is_file():  # a pipe or a device may never end
+            return _failed(source, "not a regular file (a pipe or a device?)")
         if p.stat().st_size == 0:
             return _failed(source, "empty file (0 bytes)")
         head = _head(p, 1024)
@@ -579,7 +589,7 @@ def content_problem(page_obj, doc, limits: ReadLimits) -> str | None:
     except _OverLimit as exc:
         return str(exc)
     if ops > limits.max_drawing_ops:
-        return (f"draws over {limits.max_drawing_ops:,} path operations, over the limit (--max-drawing-ops); not read")
+        return f"draws over the limit of {limits.max_drawing_ops:,} path operations (--max-drawing-ops); not read"
     return None
 
 

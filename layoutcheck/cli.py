@@ -20,7 +20,6 @@ from .template import TemplateError, load_template, save_template
 from .verdict import VERDICTS, Tolerances
 
 
-
 class TemplateProblem(click.ClickException):
     """An unreadable template: exit code 2, one line."""
 

@@ -356,16 +356,22 @@ class _PdfDocument(Document):
         self._pdfium = None
         self._walker = None
         self._seen: list = []  # pdfminer page objects walked so far (small)
+        self._fh = None
 
     @classmethod
     def open(cls, source: str, limits: ReadLimits, pages: set[int] | None) -> Document:
         import pdfplumber
 
+        # The file is opened here and closed by us on every path: pdfplumber closes a file it
+        # opened itself only for some of the errors a damaged file can raise.
+        fh = open(source, "rb")
         try:
-            pdf = pdfplumber.open(source, password=limits.password or "")
+            pdf = pdfplumber.open(fh, password=limits.password or "")
         except MemoryError:  # the worker answers for its memory limit
+            fh.close()
             raise
         except Exception as exc:
+            fh.close()
             if _is_password_error(exc):
                 return _failed(source, "PDF is " + ("encrypted and the password is wrong" if limits.password
                                                     else "encrypted; give --password"))
@@ -375,18 +381,19 @@ class _PdfDocument(Document):
             if count is None:
                 count = len(pdf.pages)
         except MemoryError:  # the worker answers for its memory limit
+            fh.close()
             raise
         except Exception as exc:
-            with contextlib.suppress(Exception):
-                pdf.close()
+            fh.close()
             if _is_password_error(exc):
                 return _failed(source, "PDF is encrypted; give --password")
             return _failed(source, f"damaged PDF page tree ({_one_line(exc)})")
         if count == 0:
-            with contextlib.suppress(Exception):
-                pdf.close()
+            fh.close()
             return _failed(source, "PDF has no pages (empty or broken page tree)")
-        return cls(source, _numbers(source, count, limits, pages), pdf, limits)
+        doc = cls(source, _numbers(source, count, limits, pages), pdf, limits)
+        doc._fh = fh
+        return doc
 
     def release(self) -> None:
         if self._open_page is not None:
@@ -461,18 +468,14 @@ class _PdfDocument(Document):
 
     def close(self) -> None:
         self.release()
-        pdf = self._pdf
         if self._pdfium is not None:
             with contextlib.suppress(Exception):
                 self._pdfium.close()
-        if pdf is not None:
-            with contextlib.suppress(Exception):
-                # pdfplumber's own close() walks every page first; we never built its page list.
-                if not hasattr(pdf, "_pages") and getattr(pdf, "stream_is_external", True) is False:
-                    pdf.stream.close()
-                else:
-                    pdf.close()
-        self._pdfium = self._pdf = None
+        # Not pdfplumber's close(): it walks every page of the file first, to flush caches of
+        # pages this document never built. Closing the file is all there is to do.
+        if self._fh is not None:
+            self._fh.close()
+        self._pdfium = self._pdf = self._fh = None
 
 
 def _pdfium_count(source: str, limits: ReadLimits) -> int | None:

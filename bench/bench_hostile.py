@@ -178,7 +178,8 @@ def run_one(files: list[str], out: Path, grow: bool) -> dict:
     verdicts: dict = {}
     for r in bad:
         verdicts[r["verdict"]] = verdicts.get(r["verdict"], 0) + 1
-    errors = sorted({r["error"].split(": ", 1)[-1][:90] for r in bad if r["error"]})
+    # What each record says: the error, or the first finding (an unrecognised page says why).
+    errors = sorted({(r["error"] or r["findings"][0]["message"]).split(": ", 1)[-1][:90] for r in bad if r["findings"]})
     return {"wall_s": wall, "verdicts": verdicts, "longest_ms": max((r["elapsed_ms"] for r in res.records), default=0.0),
             "worker_rss_mb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024,
             "good_pass": [r["verdict"] for r in good] == ["pass"] * len(good) and bool(good),

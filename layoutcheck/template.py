@@ -12,6 +12,7 @@ No solving happens here.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 import os
@@ -22,7 +23,7 @@ from typing import Iterable, Sequence
 import networkx as nx
 import numpy as np
 
-from .elements import KINDS, Element, PageElements, frame_contains, frame_overlap, merge_frames
+from .elements import Element, PageElements, frame_contains, frame_overlap, merge_frames
 
 FORMAT_VERSION = 1
 FORMAT_NAME = "layoutcheck-template"
@@ -350,10 +351,15 @@ def _frame_distance(f: Sequence[float], x: float, y: float) -> float:
 def save_template(template: Template, path: str | os.PathLike) -> None:
     """Write the template as JSON (atomically: a crash never leaves half a file)."""
     tmp = f"{path}.tmp"
-    with open(tmp, "w", encoding="utf-8") as fh:
-        json.dump(template.to_dict(), fh, indent=1, ensure_ascii=False)
-        fh.write("\n")
-    os.replace(tmp, path)
+    try:
+        with open(tmp, "w", encoding="utf-8") as fh:
+            json.dump(template.to_dict(), fh, indent=1, ensure_ascii=False)
+            fh.write("\n")
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)  # a full disk must not leave a stray temporary file
+        raise
 
 
 def template_from_dict(data: object, where: str = "template") -> Template:
@@ -391,8 +397,8 @@ def template_from_dict(data: object, where: str = "template") -> Template:
         if len(set(ids)) != len(ids):
             raise TemplateError(f"{where}: template page {p.number} repeats element ids")
         for e in p.elements + p.raster_elements:
-            if e.kind not in KINDS or not all(isinstance(v, str) or v is None for v in (e.text, e.caption)):
-                raise TemplateError(f"{where}: template page {p.number} element {e.id[:80]} has an invalid kind or text")
+            if not all(isinstance(v, str) or v is None for v in (e.text, e.caption)):
+                raise TemplateError(f"{where}: template page {p.number} element {e.id[:80]} has text that is not a string")
             if not _frame_ok(e.frame) or not (e.angle is None or math.isfinite(e.angle)):
                 raise TemplateError(f"{where}: template page {p.number} element {e.id[:80]} has an invalid frame")
         for s in p.sections:

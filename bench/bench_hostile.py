@@ -265,14 +265,26 @@ def memory_part(rows: list, tmp: Path) -> None:
             out[k] = int(v.split()[0]) / 1024 if v.strip().endswith("kB") else v.strip()
         return out
 
-    w = _Worker(templates, CheckSettings(), ReadLimits(), None)
-    w.conn.recv()
-    idle = status(w.proc.pid)
-    w.close()
+    def idle_worker() -> dict:
+        w = _Worker(templates, CheckSettings(), ReadLimits(), None)
+        w.conn.recv()
+        out = status(w.proc.pid)
+        w.close()
+        return out
+
+    idle = idle_worker()
+    os.environ["OPENBLAS_NUM_THREADS"] = str(os.cpu_count())  # as a worker would have it by default
+    pooled = idle_worker()
+    del os.environ["OPENBLAS_NUM_THREADS"]
     rows.append(("### Memory of a worker", None))
-    rows.append((f"Idle worker (readers imported, one BLAS thread): address space {idle['VmSize']:.0f} MB, data segment "
-                 f"{idle['VmData']:.0f} MB, resident {idle['VmRSS']:.0f} MB. The limit is on the data segment "
-                 "(RLIMIT_DATA): a limit on the address space would count the reserved, unused part too.", None))
+    rows.append(("| idle worker (readers imported) | address space MB | data segment MB | resident MB |", None))
+    rows.append(("|---|---|---|---|", None))
+    rows.append((f"| one BLAS thread (as workers run) | {idle['VmSize']:.0f} | {idle['VmData']:.0f} | {idle['VmRSS']:.0f} |", None))
+    rows.append((f"| BLAS pool of {os.cpu_count()} threads (the library's default) | {pooled['VmSize']:.0f} | {pooled['VmData']:.0f} | "
+                 f"{pooled['VmRSS']:.0f} |", None))
+    rows.append(("", None))
+    rows.append(("The limit is on the data segment (RLIMIT_DATA): a limit on the address space (RLIMIT_AS) would also "
+                 "count what is reserved and never used.", None))
     rows.append(("", None))
     rows.append(("| page | passes under --max-memory (MB) | refused under (MB) |", None))
     rows.append(("|---|---|---|", None))

@@ -639,8 +639,8 @@ def _settle(sched: "_Scheduler", order: _Order, task: tuple, out) -> None:
 def _worker_env() -> dict:
     """The environment of a worker process: this package importable, as in the parent, and one
     BLAS thread (a worker checks one page at a time; the jobs are the parallelism). The BLAS
-    thread pool's buffers count against the memory limit, and grow with the number of cores:
-    with them, an idle worker holds 373 MB of data on 2 cores (``bench/bench_hostile.py``)."""
+    thread pool's buffers count against the memory limit, and grow with the number of cores
+    (``bench/bench_hostile.py`` measures an idle worker with and without them)."""
     env = dict(os.environ)
     for name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
         env.setdefault(name, "1")
@@ -671,10 +671,14 @@ class _Worker:
         self.started = 0.0
         self.ready = False
         self.memory_mb = memory_mb
-        self.send_conn.send(("init", templates, settings, limits, memory_mb))
+        self.send(("init", templates, settings, limits, memory_mb))
 
     def send(self, msg) -> None:
-        self.send_conn.send(msg)
+        """Send a message; a worker that has died is found by its closed pipe, not here."""
+        try:
+            self.send_conn.send(msg)
+        except OSError:
+            pass
 
     def exit_note(self) -> str:
         """Why the process ended, in words."""
@@ -701,10 +705,7 @@ class _Worker:
 
     def close(self) -> None:
         """Ask the worker to leave; kill it if it does not within a few seconds."""
-        try:
-            self.send(None)
-        except OSError:
-            pass
+        self.send(None)
         try:
             self.proc.wait(5)
         except subprocess.TimeoutExpired:

@@ -7,9 +7,14 @@ A file becomes an iterator of pages, each one of
 - :class:`RasterPage` — a grey ``uint8`` image (0 black, 255 white) with its resolution, from PNG,
   JPEG, TIFF (every frame) or from a PDF page that only wraps a scanned image;
 - :class:`PageError` — a page (or a whole file) that could not be read, with a one-line message
-  naming the file and page. Reading never raises for bad input: the batch carries on.
+  naming the file and page. Reading never raises for bad input: the batch carries on. (A
+  :class:`MemoryError` is passed on, so a worker under a memory limit can answer for it.)
 
-Limits (pixels, pages, password) are enforced here, before anything large is decoded.
+Limits (pixels, pages, password, decoded content and drawing operations of a PDF page) are
+enforced here, before anything large is decoded or parsed. A PDF page's content is checked
+against its limits first, by inflating its streams no further than the limit; then pypdfium2
+alone tells an image-only page (a scan) and renders it, so pdfminer parses the content of
+born-digital pages only.
 """
 
 from __future__ import annotations

@@ -77,12 +77,25 @@ def _cut_image(p):
 
 
 def _memory_hog(p):
-    # 17,000 x 17,000 = 289 million pixels: under the pixel limit (300 million), over what a
-    # worker can check within 1536 MB.
-    img = np.full((17_000, 17_000), 255, np.uint8)
-    img[::400, :] = 0
-    img[:, ::400] = 0
-    return H.save_image(p, img, dpi=600)
+    """An image-only A2 page (ISO 216: 420 x 594 mm) holding a 14,000 x 19,800 image of a grid:
+    277 million pixels, under the pixel limit (300 million), far over what a worker can check
+    within 1536 MB."""
+    import zlib
+
+    w, h = 14_000, 19_800
+    comp = zlib.compressobj(6)
+    # A grid of boxes: rules 12 px wide every 400 px, across and down.
+    row = bytes(0 if x % 400 < 12 else 255 for x in range(w))
+    rule = b"\x00" * w
+    parts = [comp.compress(rule if y % 400 < 12 else row) for y in range(h)]
+    data = b"".join(parts) + comp.flush()
+    img = (b"<< /Type /XObject /Subtype /Image /Width %d /Height %d /ColorSpace /DeviceGray /BitsPerComponent 8 "
+           b"/Filter /FlateDecode /Length %d >>\nstream\n" % (w, h, len(data)) + data + b"\nendstream")
+    a2 = (1191, 1684)  # A2 in points
+    objs = [b"<< /Type /Catalog /Pages 2 0 R >>", b"<< /Type /Pages /Kids [3 0 R] /Count 1 >>",
+            b"<< /Type /Page /Parent 2 0 R /MediaBox [0 0 %d %d] /Contents 4 0 R /Resources << /XObject << /Im 5 0 R >> >> >>" % a2,
+            H.stream(b"", b"q %d 0 0 %d 0 0 cm /Im Do Q\n" % a2), img]
+    return H.raw_pdf(p, objs)
 
 
 def _growing(p):
@@ -131,7 +144,8 @@ def kinds() -> dict:
         "name with a newline": (None, lambda d: H.odd_name(d, b"line\nbreak.pdf")),
         "name not UTF-8": (None, lambda d: H.odd_name(d, b"caf\xe9.pdf")),
         "named pipe": ("pipe.pdf", lambda p: (os.mkfifo(p), p)[1]),
-        "page over the memory limit (289 Mpx)": ("hog.png", _memory_hog),
+        "scanned A2 page of 277 Mpx (the heaviest the other limits admit)": ("hog.pdf", _memory_hog),
+        "the same page with --max-memory 512": ("hog.pdf", _memory_hog),
     }
 
 
@@ -147,9 +161,10 @@ def without_file_override() -> list[str]:
     return []
 
 
-def run_one(files: list[str], out: Path, grow: bool) -> dict:
-    """One batch (``-j 2``, default limits) over ``files``: what the table needs."""
+def run_one(files: list[str], out: Path, grow: bool, memory_mb: int | None = None) -> dict:
+    """One batch (``-j 2``, default limits unless ``memory_mb``) over ``files``: what the table needs."""
     from layoutcheck.batch import BatchOptions, run_batch
+    from layoutcheck.sources import printable
     from layoutcheck.template import load_template
 
     stop = threading.Event()
@@ -157,9 +172,9 @@ def run_one(files: list[str], out: Path, grow: bool) -> dict:
     def grower(path):
         with open(path, "ab") as fh:
             while not stop.is_set():
-                fh.write(b"%% more bytes arriving\n" * 4000)
+                fh.write(b"%% more bytes arriving\n" * 200)  # 4.6 KB every 10 ms, as a slow copy would
                 fh.flush()
-                time.sleep(0.005)
+                time.sleep(0.01)
 
     threads = [threading.Thread(target=grower, args=(f,)) for f in files if grow and "growing" in f]
     for t in threads:
@@ -167,7 +182,7 @@ def run_one(files: list[str], out: Path, grow: bool) -> dict:
     t0 = time.perf_counter()
     try:
         res = run_batch(files, [load_template(TEMPLATE)], output=str(out),
-                        options=BatchOptions(jobs=2, keep_records=True))
+                        options=BatchOptions(jobs=2, keep_records=True, **({"memory_mb": memory_mb} if memory_mb else {})))
     finally:
         stop.set()
         for t in threads:
@@ -180,7 +195,8 @@ def run_one(files: list[str], out: Path, grow: bool) -> dict:
         verdicts[r["verdict"]] = verdicts.get(r["verdict"], 0) + 1
     # What each record says: the error, or the first finding (an unrecognised page says why).
     errors = sorted({(r["error"] or r["findings"][0]["message"]).split(": ", 1)[-1][:90] for r in bad if r["findings"]})
-    return {"wall_s": wall, "verdicts": verdicts, "longest_ms": max((r["elapsed_ms"] for r in res.records), default=0.0),
+    over = sorted({printable(os.path.basename(r["source"])) for r in res.records if r["error"] and "(--page-timeout)" in r["error"]})
+    return {"wall_s": wall, "verdicts": verdicts, "timed_out": over, "longest_ms": max((r["elapsed_ms"] for r in res.records), default=0.0),
             "worker_rss_mb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024,
             "good_pass": [r["verdict"] for r in good] == ["pass"] * len(good) and bool(good),
             "records": len(res.records), "errors": errors[:2]}
@@ -195,6 +211,7 @@ def corpus_part(rows: list, tmp: Path) -> None:
         make_kind(d, kind)
         shutil.copy(EXACT, d / "zz_good.pdf")
         cmd = without_file_override() + [sys.executable, __file__, "--one", str(d)] + (["--grow"] if "growing" in kind else [])
+        cmd += ["--memory", "512"] if "--max-memory 512" in kind else []
         res = subprocess.run(cmd, capture_output=True, text=True, timeout=900)
         if res.returncode != 0:
             raise SystemExit(f"{kind}: the batch failed:\n{res.stderr[-2000:]}")
@@ -221,6 +238,8 @@ def corpus_part(rows: list, tmp: Path) -> None:
     d = tmp / "all"
     d.mkdir()
     for k, kind in enumerate(names):
+        if "--max-memory" in kind:
+            continue  # the whole corpus runs under the default limits only
         sub = d / f"k{k:02d}"
         sub.mkdir()
         make_kind(sub, kind)
@@ -234,7 +253,8 @@ def corpus_part(rows: list, tmp: Path) -> None:
     rows.append(("", None))
     rows.append((f"The whole corpus in one batch (-j 2): {r['records']} records ({v}, and the good page "
                  f"{'passed' if r['good_pass'] else 'DID NOT PASS'}) in {r['wall_s']:.0f} s; longest page "
-                 f"{r['longest_ms'] / 1000:.1f} s; worker peak RSS {r['worker_rss_mb']:.0f} MB.", None))
+                 f"{r['longest_ms'] / 1000:.1f} s; worker peak RSS {r['worker_rss_mb']:.0f} MB; over the page time limit: "
+                 f"{', '.join(r['timed_out']) or 'none'}.", None))
 
 
 # -- memory a page needs --------------------------------------------------------------------------
@@ -404,26 +424,46 @@ def main() -> None:
     ap.add_argument("--part", choices=["corpus", "memory", "parse", "scanner"], action="append")
     ap.add_argument("--one", help=argparse.SUPPRESS)
     ap.add_argument("--grow", action="store_true", help=argparse.SUPPRESS)
+    ap.add_argument("--memory", type=int, help=argparse.SUPPRESS)
     args = ap.parse_args()
     if args.one:
         # Every entry of the folder and of its sub-folders (links, pipes and odd names as they are).
         folder = Path(args.one)
         files = sorted(str(p) for p in folder.rglob("*") if p.name != "out.jsonl" and (p.is_symlink() or not p.is_dir()))
-        print(json.dumps(run_one(files, folder / "out.jsonl", args.grow)))
+        print(json.dumps(run_one(files, folder / "out.jsonl", args.grow, args.memory)))
         return
-    parts = args.part or ["corpus", "memory", "parse", "scanner"]
-    rows: list = []
+    parts = args.part or list(PARTS)
+    done = _read_parts()
     with tempfile.TemporaryDirectory(prefix="bench-hostile-") as t:
         tmp = Path(t)
         for part in parts:
             sub = tmp / part
             sub.mkdir()
-            {"corpus": corpus_part, "memory": memory_part, "parse": parse_part, "scanner": scanner_part}[part](rows, sub)
-            rows.append(("", None))
-    text = "\n".join(r for r, _ in rows)
-    print(text)
+            rows: list = []
+            PARTS[part](rows, sub)
+            done[part] = "\n".join(r for r, _ in rows)
+            print(done[part], flush=True)
+    # Parts run alone replace their own section and keep the others'.
+    text = "\n\n".join(f"<!-- part: {p} -->\n{done[p]}" for p in PARTS if p in done)
     OUT.parent.mkdir(exist_ok=True)
     OUT.write_text(text + "\n")
+
+
+PARTS = {"corpus": corpus_part, "memory": memory_part, "parse": parse_part, "scanner": scanner_part}
+
+
+def _read_parts() -> dict:
+    """The sections of the results file, by part."""
+    if not OUT.exists():
+        return {}
+    out, name = {}, None
+    for line in OUT.read_text().splitlines():
+        if line.startswith("<!-- part: "):
+            name = line[len("<!-- part: "):].split()[0]
+            out[name] = []
+        elif name:
+            out[name].append(line)
+    return {k: "\n".join(v).strip() for k, v in out.items()}
 
 
 if __name__ == "__main__":

@@ -5,7 +5,8 @@ measured side by side in one run of that benchmark); this script puts them in on
 fixed order, under a short preface. Run it after the benchmarks:
 
     python bench/bench_consensus.py && python bench/bench_raster.py && python bench/bench_scans.py \\
-      && python bench/bench_normalise.py && python bench/bench_batch.py && python bench/collect.py
+      && python bench/bench_normalise.py && python bench/bench_batch.py && python bench/bench_hostile.py \\
+      && python bench/collect.py
 """
 
 from __future__ import annotations
@@ -20,6 +21,7 @@ ORDER = (
     ("scans", "Simulated scans: accuracy, speed and memory end to end"),
     ("normalise", "Normalised pages and zones"),
     ("batch", "Batches: throughput, choosing among 50 templates, memory"),
+    ("hostile", "Hostile input under the default limits"),
 )
 PREFACE = """# Benchmarks
 

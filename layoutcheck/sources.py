@@ -208,6 +208,8 @@ def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pa
         return _ImageDocument.open(source, limits, pages)
     except MemoryError:  # the worker answers for its memory limit
         raise
+    except OSError as exc:  # no permission, an I/O error: the system's words, without the path
+        return _failed(source, f"cannot be opened ({exc.strerror or type(exc).__name__})")
     except Exception as exc:  # last line of defence: a reader bug must not end the batch
         return _failed(source, f"could not be read ({type(exc).__name__}: {_one_line(exc)})")
 

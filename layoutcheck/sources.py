@@ -56,10 +56,11 @@ class ReadLimits:
     #: only as far as the limit.
     max_content_bytes: int = 8 * 1024 * 1024
     #: Most path operations (move, line, curve, rectangle, paint) drawn on one PDF page, counting
-    #: a form XObject once per use. A ruled form has a few thousand. Reading runs at about 18,000
-    #: a second and takes about 1.1 KB of memory each (``bench/bench_hostile.py``), so 500,000
-    #: stays near half the default page time and memory limits.
-    max_drawing_ops: int = 500_000
+    #: a form XObject once per use. A ruled form has a few thousand. Reading them runs at about
+    #: 8,000 a second on a shared 2-core machine and takes 1.2 to 1.5 KB of memory each
+    #: (``bench/bench_hostile.py``), so 250,000 stays near half the default page time limit and
+    #: a quarter of the memory limit.
+    max_drawing_ops: int = 250_000
     #: Resolution to assume for images that do not state one; None means refuse them.
     dpi: float | None = None
     #: Password for encrypted PDFs.

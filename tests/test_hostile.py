@@ -278,7 +278,7 @@ def test_forms_that_multiply_and_forms_that_loop(tmp_path, templates):
     # 100 lines of 3 operations in a form drawn 100 times by a form the page draws 100 times:
     # 3 million operations from 1.5 KB of file.
     many = H.form_multiplier(tmp_path / "many.pdf", lines=100, uses=100, depth=2)
-    assert error_of(many, templates) == "many.pdf page 1: draws over the limit of 500,000 path operations (--max-drawing-ops); not read"
+    assert error_of(many, templates) == "many.pdf page 1: draws over the limit of 250,000 path operations (--max-drawing-ops); not read"
     assert "form XObjects draw each other in a loop" in error_of(H.form_loop(tmp_path / "loop.pdf"), templates)
 
 

@@ -62,10 +62,10 @@ def good_copy(folder: Path, name="good.pdf") -> str:
 def test_defaults_are_on_and_documented():
     opts, limits = BatchOptions(), ReadLimits()
     assert (opts.page_timeout, opts.memory_mb) == (60.0, 1536) and not opts.in_process
-    assert (limits.max_content_bytes, limits.max_drawing_ops, limits.max_pixels) == (8 * 1024 * 1024, 500_000, 300_000_000)
+    assert (limits.max_content_bytes, limits.max_drawing_ops, limits.max_pixels) == (8 * 1024 * 1024, 250_000, 300_000_000)
     text = " ".join(CliRunner().invoke(main, ["verify", "--help"]).output.split())
     for flag, default in (("--page-timeout", "60.0"), ("--max-memory", "1536"), ("--max-content-mb", "8.0"),
-                          ("--max-drawing-ops", "500000"), ("--max-pixels", "300000000")):
+                          ("--max-drawing-ops", "250000"), ("--max-pixels", "300000000")):
         at = text.index(flag + " ")
         assert f"[default: {default}" in text[at:at + 300], flag
     assert "Exit codes: 0 every page passed; 1 some page did not; 2 usage error" in text

@@ -427,6 +427,9 @@ class _PdfDocument(Document):
 
             pl = pdfplumber.page.Page(self._pdf, obj, page_number=n)
             self._open_page = pl
+            # Parsed here, while the file is open: a caller may keep the page after the
+            # document is closed (the last page of ``read_pages``), and extraction needs it all.
+            pl.layout
             width, height, rot = _display_size(pl)
             return VectorPage(self.source, n, width, height, pl, rot, self.source)
         except MemoryError:  # the worker answers for its memory limit

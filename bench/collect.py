@@ -6,7 +6,7 @@ fixed order, under a short preface. Run it after the benchmarks:
 
     python bench/bench_consensus.py && python bench/bench_raster.py && python bench/bench_scans.py \\
       && python bench/bench_fillin.py && python bench/bench_normalise.py && python bench/bench_batch.py \\
-      && python bench/bench_watch.py \\
+      && python bench/bench_watch.py && python bench/bench_hostile.py \\
       && python bench/bench_identify.py --part 1/3 && python bench/bench_identify.py --part 2/3 \\
       && python bench/bench_identify.py --part 3/3 && python bench/bench_identify.py --report \\
       && python bench/collect.py
@@ -30,6 +30,7 @@ ORDER = (
     ("watch", "Watched inbox: throughput against verify"),
     ("identify", "Identification among look-alike forms: 100 and 1,000 templates, revisions, start-up, memory"),
     ("camera", "Camera captures: photos end to end, homography against findHomography"),
+    ("hostile", "Hostile input under the default limits"),
 )
 PREFACE = """# Benchmarks
 

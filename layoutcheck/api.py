@@ -26,7 +26,8 @@ from typing import Any, Callable, Sequence, Union
 
 import numpy as np
 
-from .batch import BatchOptions, BatchResult, expand_inputs, run_batch
+from .batch import MEMORY_MB, PAGE_TIMEOUT_S, BatchOptions, BatchResult, OutputError, expand_inputs, run_batch
+from .exitcodes import EXIT_FLAGGED, EXIT_INCOMPLETE, EXIT_PASS, EXIT_USAGE, HELP as EXIT_HELP
 from .check import (CheckSettings, alike_templates, check_page as _check_page, handoff_fields, learn as _learn,
                     learning_summary, parse_pages, sample_files, update as _update)
 from .index import TemplateIndex, as_index
@@ -38,7 +39,8 @@ from .verdict import SEVERITY, VERDICTS, Tolerances
 from .zones import ZoneError, apply_zone_file
 
 __all__ = [
-    "BatchOptions", "BatchResult", "CheckError", "CheckSettings", "Finding", "LearnError", "Offending",
+    "EXIT_FLAGGED", "EXIT_HELP", "EXIT_INCOMPLETE", "EXIT_PASS", "EXIT_USAGE", "MEMORY_MB", "OutputError",
+    "PAGE_TIMEOUT_S", "BatchOptions", "BatchResult", "CheckError", "CheckSettings", "Finding", "LearnError", "Offending",
     "PagePose", "PageResult", "ReadLimits", "SEVERITY", "SectionResult", "Template", "TemplateError", "Tolerances",
     "VERDICTS", "ZoneError", "ZoneResult", "check_file", "check_page", "counts_line", "expand_inputs",
     "SCHEMA_VERSION", "TemplateIndex", "alike_templates", "as_index", "check_files", "learn", "learning_summary", "load_templates", "open_template_index", "parse_pages", "promote",

@@ -13,13 +13,26 @@ What a batch guarantees
 - ``resume=True`` reads the output file first: a torn last line is cut off, every complete
   record's key (absolute source path, page) counts as done, and only the remaining pages are
   checked and appended. Resume uses the same input list, so pass the same arguments.
-- Pages run in worker processes (``jobs``), each holding one open document at a time
-  (pypdfium2 is not thread-safe). A page that runs over ``page_timeout`` seconds gets an error
-  record; its worker process is killed and a fresh one started, and the batch carries on. A
-  worker that dies (a reader crash) is handled the same way.
+- Pages run in worker processes (``jobs``; see :mod:`layoutcheck.worker`), each holding one
+  open document at a time (pypdfium2 is not thread-safe), under limits that are on by default:
+  ``page_timeout`` seconds per task (reading the file or checking one page) and ``memory_mb``
+  of memory per worker. A page over either gets an error record naming the limit and its value;
+  its worker is replaced and the batch carries on. A worker that dies (a reader crash) is
+  handled the same way. ``elapsed_ms`` counts the whole page: reading, rendering, extraction,
+  matching. Only with both limits off (None) do pages run in the calling process.
 - With ``engine="dask"`` the same tasks (one per file to plan, one per page) run on a Dask
-  distributed cluster; the client writes the records, in order, as results arrive. The page
-  time limit applies to the local pool only.
+  distributed cluster; the client writes the records, in order, as results arrive. Each Dask
+  task runs its page in a worker process of its own, started once per Dask worker and kept,
+  so the same time and memory limits hold there, enforced inside the task.
+- SIGTERM and SIGINT (when the batch runs in the main thread) stop the batch taking new pages;
+  pages already running get ``grace_seconds`` to finish, and those still running then get no
+  record (``resume`` does them). The result says ``interrupted``. A second signal ends the
+  grace period at once.
+- A record that cannot be written (a full disk, an I/O error, no permission) raises
+  :class:`OutputError` with one line naming the file and the error; the part of the record
+  already written is cut off again, so the file ends on its last whole record and ``resume``
+  continues once there is space. The output file is written in place and appended to (so a
+  run can be followed and resumed); a fresh run starts it afresh.
 
 Multi-page forms
 ----------------
@@ -36,10 +49,13 @@ import glob
 import heapq
 import json
 import os
+import signal
+import subprocess
 import sys
+import threading
 import time
 from collections import Counter, defaultdict
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Callable, Iterable, Sequence
 
 from .check import CheckSettings, check_page, error_record, handoff_fields
@@ -126,25 +142,62 @@ def plan_file(path: str, limits: ReadLimits) -> list:
 
 
 def check_one(path: str, page: int, templates: Sequence[Template], settings: CheckSettings, limits: ReadLimits) -> dict:
-    """The record of one page, reading through the worker's open document."""
+    """The record of one page, reading through the worker's open document.
+
+    ``elapsed_ms`` covers the whole page: reading and rendering it as well as checking it.
+    A :class:`MemoryError` is passed on: the worker that meets it answers for the limit and
+    leaves (see :mod:`layoutcheck.worker`).
+    """
+    t0 = time.perf_counter()
     doc = _OPEN.get(path, limits)
     try:
-        return check_page(doc.page(page), templates, settings)
+        rec = check_page(doc.page(page), templates, settings)
+    except MemoryError:
+        raise
     except Exception as exc:  # a bug on one page must not end the batch
-        return error_record(path, page, f"{where(path, page)}: could not be checked ({type(exc).__name__}: {' '.join(str(exc).split())[:200]})")
+        rec = error_record(path, page, f"{where(path, page)}: could not be checked ({type(exc).__name__}: {' '.join(str(exc).split())[:200]})")
     finally:
         doc.release()
+    rec["elapsed_ms"] = round((time.perf_counter() - t0) * 1000, 2)
+    return rec
+
+
+def failed_task(kind: str, path: str, page: int | None, why: str, elapsed_s: float = 0.0) -> dict | list:
+    """What a task that could not finish yields: a plan of one error record, or a page's record."""
+    if kind == "plan":
+        return [error_record(path, None, f"{where(path, None)}: {why}", elapsed_s * 1000)]
+    return error_record(path, page, f"{where(path, page)}: {why}", elapsed_s * 1000)
+
+
+def forget_document() -> None:
+    """Close the document this process holds open, if any."""
+    _OPEN.drop()
 
 
 # -- output ---------------------------------------------------------------------------------------
+class OutputError(Exception):
+    """An output that could not be written; the message is one line naming the file and the error."""
+
+
+def output_error(path: str | None, exc: OSError, what: str = "records") -> OutputError:
+    name = "standard output" if path in (None, "-") else path
+    why = exc.strerror or type(exc).__name__
+    return OutputError(f"{name}: {what} could not be written ({why})")
+
+
 class RecordSink:
-    """Appends whole JSON lines atomically (one ``os.write`` each on an ``O_APPEND`` fd)."""
+    """Appends whole JSON lines atomically (one ``os.write`` each on an ``O_APPEND`` fd).
+
+    A write that fails part-way is cut back off the file (``ftruncate`` to the size before it),
+    so the file always ends on a whole record; then :class:`OutputError` is raised.
+    """
 
     def __init__(self, path: str | None, fsync_seconds: float = 1.0):
         self.path = path
         self.fsync_seconds = fsync_seconds
         self._last_sync = time.monotonic()
         self.stream = None
+        self.size = 0
         if path is None:
             self.fd = None
         elif path == "-":
@@ -154,28 +207,59 @@ class RecordSink:
             except (AttributeError, OSError, ValueError):  # a captured stdout without a descriptor
                 self.fd, self.stream = None, sys.stdout
         else:
-            self.fd = os.open(path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+            try:
+                self.fd = os.open(path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+                self.size = os.fstat(self.fd).st_size
+            except OSError as exc:
+                raise output_error(path, exc) from None
 
     def write(self, record: dict) -> None:
+        line = json.dumps(record, ensure_ascii=False) + "\n"
+        try:
+            line.encode("utf-8")
+        except UnicodeEncodeError:  # a file name that is not UTF-8: written as JSON escapes
+            line = json.dumps(record) + "\n"
         if self.stream is not None:
-            self.stream.write(json.dumps(record, ensure_ascii=False) + "\n")
-            self.stream.flush()
+            try:
+                self.stream.write(line)
+                self.stream.flush()
+            except OSError as exc:
+                raise output_error(self.path, exc) from None
             return
         if self.fd is None:
             return
-        data = (json.dumps(record, ensure_ascii=False) + "\n").encode("utf-8")
-        view = memoryview(data)
-        while view:  # a regular file takes it whole; the loop only matters for pipes
-            view = view[os.write(self.fd, view):]
-        if self.path != "-" and time.monotonic() - self._last_sync >= self.fsync_seconds:
-            os.fsync(self.fd)
-            self._last_sync = time.monotonic()
+        view = memoryview(line.encode("utf-8"))
+        try:
+            while view:  # a regular file takes it whole; the loop only matters for pipes
+                view = view[os.write(self.fd, view):]
+            if self.path != "-" and time.monotonic() - self._last_sync >= self.fsync_seconds:
+                os.fsync(self.fd)
+                self._last_sync = time.monotonic()
+        except OSError as exc:
+            self._cut_back()
+            raise output_error(self.path, exc) from None
+        self.size += len(line.encode("utf-8"))
+
+    def _cut_back(self) -> None:
+        """Drop what a failed write left of its record (a regular file only)."""
+        if self.path in (None, "-") or self.fd is None:
+            return
+        try:
+            if os.fstat(self.fd).st_size > self.size:
+                os.ftruncate(self.fd, self.size)
+        except OSError:
+            pass  # resume cuts a torn last line off anyway
 
     def close(self) -> None:
-        if self.fd is not None and self.path != "-":
-            os.fsync(self.fd)
-            os.close(self.fd)
-        self.fd = None
+        fd, self.fd = self.fd, None
+        if fd is None or self.path == "-":
+            return
+        try:
+            os.fsync(fd)
+        except OSError as exc:
+            raise output_error(self.path, exc) from None
+        finally:
+            os.close(fd)
 
 
 def read_done(path: str) -> dict[tuple[str, int | None], dict]:
@@ -246,14 +330,33 @@ def page_set_findings(records: list[dict], prior: list[dict], templates: Sequenc
 
 
 # -- settings and result --------------------------------------------------------------------------
+#: Seconds one task (reading a file, or checking one page) may take by default. A page of a
+#: form takes under 2 s here (``docs/benchmarks.md``), so 60 s leaves room for a slow machine
+#: and still stops a page that would take minutes.
+PAGE_TIMEOUT_S = 60.0
+#: Memory per worker process by default, MB (see :mod:`layoutcheck.worker` for what is counted).
+#: An idle worker holds about 150 MB; checking an A3 scan at 600 dpi (70 million pixels) needs
+#: between 384 and 512 MB (``bench/bench_hostile.py``). 1536 MB is three times that, and keeps
+#: 8 workers within 12 GB.
+MEMORY_MB = 1536
+#: Seconds running pages get to finish after SIGTERM or SIGINT.
+GRACE_S = 10.0
+
+
 @dataclass(frozen=True)
 class BatchOptions:
-    """How a batch runs (not what it checks)."""
+    """How a batch runs (not what it checks), with its limits."""
 
-    #: Worker processes; 1 with no page time limit runs in this process.
+    #: Worker processes.
     jobs: int = 1
-    #: Seconds one page may take before its worker is replaced; None for no limit.
-    page_timeout: float | None = None
+    #: Seconds one page (or the opening of one file) may take before its worker is replaced;
+    #: None for no limit.
+    page_timeout: float | None = PAGE_TIMEOUT_S
+    #: Memory per worker process, MB; None for no limit. With both limits None and one job,
+    #: pages run in this process.
+    memory_mb: int | None = MEMORY_MB
+    #: Seconds running pages get to finish after SIGTERM or SIGINT.
+    grace_seconds: float = GRACE_S
     #: "local" (this machine) or "dask".
     engine: str = "local"
     #: Dask scheduler address; None starts a local cluster of ``jobs`` workers.
@@ -264,14 +367,25 @@ class BatchOptions:
     fsync_seconds: float = 1.0
     #: Keep every record in memory (for the summary table and the HTML report).
     keep_records: bool = False
+    #: Stop cleanly on SIGTERM and SIGINT (only when the batch runs in the main thread).
+    handle_signals: bool = True
 
     def __post_init__(self) -> None:
         if self.jobs < 1:
             raise ValueError(f"jobs must be at least 1, got {self.jobs}")
         if self.page_timeout is not None and not self.page_timeout > 0:
             raise ValueError(f"page timeout must be positive, got {self.page_timeout}")
+        if self.memory_mb is not None and not self.memory_mb >= 64:
+            raise ValueError(f"memory limit must be at least 64 MB, got {self.memory_mb}")
+        if not self.grace_seconds >= 0:
+            raise ValueError(f"grace period must be 0 or more seconds, got {self.grace_seconds}")
         if self.engine not in ("local", "dask"):
             raise ValueError(f"engine must be 'local' or 'dask', got {self.engine!r}")
+
+    @property
+    def in_process(self) -> bool:
+        """Pages run in the calling process: one job and no limit to enforce."""
+        return self.jobs == 1 and self.page_timeout is None and self.memory_mb is None
 
 
 @dataclass
@@ -280,6 +394,8 @@ class BatchResult:
     records: list[dict] = field(default_factory=list)
     written: int = 0
     skipped: int = 0
+    #: Stopped by SIGTERM or SIGINT before every page had its record.
+    interrupted: bool = False
 
     @property
     def total(self) -> int:
@@ -287,12 +403,13 @@ class BatchResult:
 
     @property
     def all_pass(self) -> bool:
-        return self.total > 0 and self.counts["pass"] == self.total
+        return self.total > 0 and self.counts["pass"] == self.total and not self.interrupted
 
     def summary(self) -> str:
         parts = [f"{self.counts[v]} {v}" for v in reversed(VERDICTS) if self.counts[v]]
         line = f"{self.total} page(s): " + (", ".join(parts) if parts else "none")
-        return line + (f" ({self.skipped} already done)" if self.skipped else "")
+        line += f" ({self.skipped} already done)" if self.skipped else ""
+        return line + ("; interrupted: repeat the command with --resume to check the rest" if self.interrupted else "")
 
 
 # -- ordering -------------------------------------------------------------------------------------
@@ -399,6 +516,43 @@ class _Order:
 
 
 # -- engines --------------------------------------------------------------------------------------
+class _Stop:
+    """Set by SIGTERM or SIGINT: take no new pages; a second signal ends the grace period."""
+
+    def __init__(self) -> None:
+        self.requested = 0.0  # monotonic time of the first signal, 0 before
+        self.hurry = False
+
+    def __call__(self, signum, frame) -> None:
+        if self.requested:
+            self.hurry = True
+        else:
+            self.requested = time.monotonic()
+
+    def over(self, grace: float) -> bool:
+        """The grace period after the first signal has run out."""
+        return bool(self.requested) and (self.hurry or time.monotonic() - self.requested >= grace)
+
+
+class _Signals:
+    """SIGTERM and SIGINT handlers for the length of a batch (main thread only), then the old ones."""
+
+    def __init__(self, stop: _Stop, active: bool):
+        self.stop = stop
+        self.active = active and threading.current_thread() is threading.main_thread()
+        self.old: dict = {}
+
+    def __enter__(self) -> "_Signals":
+        if self.active:
+            for s in (signal.SIGTERM, signal.SIGINT):
+                self.old[s] = signal.signal(s, self.stop)
+        return self
+
+    def __exit__(self, *exc) -> None:
+        for s, h in self.old.items():
+            signal.signal(s, h)
+
+
 def run_batch(inputs: Sequence[str], templates: Sequence[Template], settings: CheckSettings = CheckSettings(),
               limits: ReadLimits = ReadLimits(), output: str | None = None, options: BatchOptions = BatchOptions(),
               progress: Callable[[int, int], None] | None = None,
@@ -408,39 +562,55 @@ def run_batch(inputs: Sequence[str], templates: Sequence[Template], settings: Ch
     ``output`` is a path, ``"-"`` for standard output, or None for no file (keep the records
     with ``options.keep_records``). ``progress(done, total)`` is called after each record, with
     files not yet opened counted as one page; ``on_file(path, records)`` once a file's records
-    are all written, in input order. Never raises for bad input; see the module notes.
+    are all written, in input order. Never raises for bad input; raises :class:`OutputError`
+    when the records cannot be written. See the module notes.
     """
     files = [os.path.normpath(p) if p != "-" else p for p in inputs]
     done = read_done(output) if options.resume and output and output != "-" else {}
     if output and output not in ("-",) and not options.resume:
-        with open(output, "wb"):
-            pass  # a fresh run starts a fresh file
+        try:
+            with open(output, "wb"):
+                pass  # a fresh run starts a fresh file
+        except OSError as exc:
+            raise output_error(output, exc) from None
+    if options.resume and settings.normalise_dir:
+        # Pages redone by a resumed run may replace the images their first try wrote.
+        settings = replace(settings, normalise_replace=True)
     sink = RecordSink(output, options.fsync_seconds)
     result = BatchResult()
     order = _Order(files, list(templates), sink, done, result, progress)
     order._keep = options.keep_records
     order._settings = settings
     order.on_file = on_file
+    stop = _Stop()
     try:
-        if options.engine == "dask":
-            _run_dask(files, templates, settings, limits, options, order)
-        elif options.jobs == 1 and options.page_timeout is None:
-            _run_here(files, templates, settings, limits, order)
-        else:
-            _run_pool(files, templates, settings, limits, options, order)
+        with _Signals(stop, options.handle_signals):
+            if options.engine == "dask":
+                _run_dask(files, templates, settings, limits, options, order, stop)
+            elif options.in_process:
+                _run_here(files, templates, settings, limits, order, stop)
+            else:
+                _run_pool(files, templates, settings, limits, options, order, stop)
     finally:
-        sink.close()
-        _OPEN.drop()
+        try:
+            sink.close()
+        finally:
+            _OPEN.drop()
+    result.interrupted = bool(stop.requested)
     return result
 
 
-def _run_here(files, templates, settings, limits, order: _Order) -> None:
+def _run_here(files, templates, settings, limits, order: _Order, stop: _Stop) -> None:
     for i, path in enumerate(files):
         for page in order.set_plan(i, plan_file(path, limits)):
+            if stop.requested:
+                return
             order.add(i, page, check_one(path, page, templates, settings, limits))
             order.flush()
         order.flush()
         _OPEN.drop()
+        if stop.requested:
+            return
 
 
 class _Scheduler:
@@ -487,90 +657,125 @@ def _settle(sched: "_Scheduler", order: _Order, task: tuple, out) -> None:
     order.flush()
 
 
-def _pool_worker(conn, templates, settings, limits) -> None:  # pragma: no cover - runs in a child
-    """A worker process: plan files and check pages as told, one at a time."""
-    # Import the readers and extractors before saying ready, so no page pays for them.
-    import pdfplumber  # noqa: F401
-    import pypdfium2  # noqa: F401
-
-    from .extract import raster, vector  # noqa: F401
-
-    conn.send(("ready", None, None, None))
-    try:
-        while True:
-            try:
-                task = conn.recv()
-            except EOFError:
-                break
-            if task is None:
-                break
-            if task[0] == "plan":
-                out = plan_file(task[2], limits)
-            else:
-                out = check_one(task[2], task[3], templates, settings, limits)
-            conn.send((task[0], task[1], task[3] if task[0] == "page" else None, out))
-    finally:
-        _OPEN.drop()
+def _worker_env() -> dict:
+    """The environment of a worker process: this package importable, as in the parent, and one
+    BLAS thread (a worker checks one page at a time; the jobs are the parallelism). The BLAS
+    thread pool's buffers count against the memory limit, and grow with the number of cores
+    (``bench/bench_hostile.py`` measures an idle worker with and without them)."""
+    env = dict(os.environ)
+    for name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        env.setdefault(name, "1")
+    here = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    env["PYTHONPATH"] = here + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
+    return env
 
 
 class _Worker:
-    def __init__(self, ctx, templates, settings, limits):
-        parent, child = ctx.Pipe()
-        self.conn = parent
-        self.proc = ctx.Process(target=_pool_worker, args=(child, templates, settings, limits), daemon=True)
-        self.proc.start()
-        child.close()
+    """A worker process (:mod:`layoutcheck.worker`) and the two pipes to it."""
+
+    def __init__(self, templates, settings: CheckSettings, limits: ReadLimits, memory_mb: int | None):
+        from multiprocessing.connection import Connection
+
+        to_r, to_w = os.pipe()
+        from_r, from_w = os.pipe()
+        try:
+            self.proc = subprocess.Popen([sys.executable, "-m", "layoutcheck.worker", str(to_r), str(from_w)],
+                                         pass_fds=(to_r, from_w), env=_worker_env(), stdin=subprocess.DEVNULL,
+                                         start_new_session=True)
+        finally:
+            os.close(to_r)
+            os.close(from_w)
+        # A new session: a Ctrl-C at the terminal reaches the batch alone, which decides.
+        self.send_conn = Connection(to_w, readable=False)
+        self.conn = Connection(from_r, writable=False)
         self.task = None
         self.started = 0.0
         self.ready = False
+        self.memory_mb = memory_mb
+        self.send(("init", templates, settings, limits, memory_mb))
+
+    def send(self, msg) -> None:
+        """Send a message; a worker that has died is found by its closed pipe, not here."""
+        try:
+            self.send_conn.send(msg)
+        except OSError:
+            pass
+
+    def exit_note(self) -> str:
+        """Why the process ended, in words."""
+        try:
+            code = self.proc.wait(5)
+        except subprocess.TimeoutExpired:
+            return "the reading process stopped answering"
+        what = f"signal {-code}" if code < 0 else f"exit code {code}"
+        hint = f"; a page over the memory limit ({self.memory_mb} MB, --max-memory) can do this" if self.memory_mb else ""
+        return f"the reading process died ({what}{hint})"
 
     def kill(self) -> None:
-        self.proc.kill()
-        self.proc.join(5)
-        self.conn.close()
+        if self.proc.poll() is None:
+            self.proc.kill()
+        try:
+            self.proc.wait(5)
+        except subprocess.TimeoutExpired:
+            pass
+        for c in (self.conn, self.send_conn):
+            try:
+                c.close()
+            except OSError:
+                pass
+
+    def close(self) -> None:
+        """Ask the worker to leave; kill it if it does not within a few seconds."""
+        self.send(None)
+        try:
+            self.proc.wait(5)
+        except subprocess.TimeoutExpired:
+            pass
+        self.kill()
 
 
-def _run_pool(files, templates, settings, limits, options: BatchOptions, order: _Order) -> None:
-    import multiprocessing as mp
+def _timeout_note(limit: float) -> str:
+    return f"took longer than the page time limit of {limit:g} s (--page-timeout); stopped"
+
+
+def _run_pool(files, templates, settings, limits, options: BatchOptions, order: _Order, stop: _Stop) -> None:
     from multiprocessing.connection import wait
 
-    ctx = mp.get_context("spawn")  # no fork: safe whatever threads the caller runs
-    workers = [_Worker(ctx, templates, settings, limits) for _ in range(options.jobs)]
+    def new_worker() -> _Worker:
+        return _Worker(templates, settings, limits, options.memory_mb)
+
+    workers = [new_worker() for _ in range(options.jobs)]
     sched = _Scheduler(files, order, window=options.jobs * 4)
     limit = options.page_timeout
 
-    def settle(task, out) -> None:
-        _settle(sched, order, task, out)
-
-    def failed(task, why: str) -> dict | list:
-        path = files[task[1]]
-        if task[0] == "plan":
-            return [error_record(path, None, f"{where(path, None)}: {why}")]
-        return error_record(path, task[2], f"{where(path, task[2])}: {why}")
-
     try:
         while not sched.finished():
-            for w in workers:
-                if w.task is None and w.ready:
-                    t = sched.next_task()
-                    if t is None:
-                        break
-                    w.task, w.started = t, time.monotonic()
-                    w.conn.send((t[0], t[1], files[t[1]], t[2] if t[0] == "page" else None))
+            if stop.requested:
+                if not any(w.task is not None for w in workers) or stop.over(options.grace_seconds):
+                    return  # pages still running get no record: resume does them
+            else:
+                for w in workers:
+                    if w.task is None and w.ready:
+                        t = sched.next_task()
+                        if t is None:
+                            break
+                        w.task, w.started = t, time.monotonic()
+                        w.send((t[0], t[1], files[t[1]], t[2] if t[0] == "page" else None))
             starting = [w for w in workers if not w.ready]
             busy = [w for w in workers if w.task is not None]
             if not busy and not starting:  # cannot happen: tasks go out in order, so the earliest is always running
                 raise RuntimeError("batch scheduler stalled")
             now = time.monotonic()
-            wait_for = None if limit is None or not busy else max(0.0, min(w.started + limit for w in busy) - now)
-            ready = wait([w.conn for w in busy + starting] + [w.proc.sentinel for w in busy + starting], timeout=wait_for)
+            # Wake at least twice a second, so a signal is acted on soon.
+            wait_for = 0.5 if limit is None or not busy else min(0.5, max(0.0, min(w.started + limit for w in busy) - now))
+            ready = wait([w.conn for w in busy + starting], timeout=wait_for)
             for k, w in enumerate(workers):
                 if not w.ready and w.conn in ready:
                     try:
                         w.conn.recv()
                         w.ready = True
                     except (EOFError, OSError):
-                        raise RuntimeError(f"a worker process could not start (exit code {w.proc.exitcode})") from None
+                        raise RuntimeError(f"a worker process could not start ({w.exit_note()})") from None
                     continue
                 if w.task is None:
                     continue
@@ -583,46 +788,91 @@ def _run_pool(files, templates, settings, limits, options: BatchOptions, order: 
                         got = None
                 if got is not None:
                     w.task = None
-                    settle(task, got[3])
+                    _settle(sched, order, task, got[3])
+                    if got[4]:  # it ran out of memory and leaves
+                        w.kill()
+                        workers[k] = new_worker()
                     continue
-                over = limit is not None and time.monotonic() - w.started >= limit
-                dead = w.proc.sentinel in ready or not w.proc.is_alive()
+                elapsed = time.monotonic() - w.started
+                over = limit is not None and elapsed >= limit
+                dead = w.conn in ready or w.proc.poll() is not None
                 if over or dead:
-                    code = w.proc.exitcode
+                    why = w.exit_note() if dead else _timeout_note(limit)
                     w.kill()
-                    why = (f"took longer than {limit:g} s; stopped (--page-timeout)" if over and not dead
-                           else f"the reading process died (exit code {code})")
-                    settle(task, failed(task, why))
-                    workers[k] = _Worker(ctx, templates, settings, limits)
+                    path = files[task[1]]
+                    _settle(sched, order, task, failed_task(task[0], path, task[2] if task[0] == "page" else None, why, elapsed))
+                    workers[k] = new_worker()
     finally:
         for w in workers:
-            try:
-                w.conn.send(None)
-            except (OSError, BrokenPipeError):
-                pass
-        for w in workers:
-            w.proc.join(5)
-            if w.proc.is_alive():
+            if w.task is not None:
                 w.kill()
+            else:
+                w.close()
 
 
-def _dask_plan(path: str, limits: ReadLimits) -> list:
-    with _DASK_LOCK:
-        return plan_file(path, limits)
+class _TaskRunner:
+    """One worker process driven one task at a time, with the time limit (inside a Dask task)."""
+
+    def __init__(self) -> None:
+        self.worker: _Worker | None = None
+        self.setup: tuple | None = None
+
+    def run(self, task: tuple, templates, settings: CheckSettings, limits: ReadLimits, options: BatchOptions):
+        from multiprocessing.connection import wait
+
+        setup = (settings, limits, options.memory_mb)
+        if (self.worker is None or self.setup != setup or self.templates is not templates
+                or self.worker.proc.poll() is not None):
+            self.close()
+            self.worker = _Worker(templates, settings, limits, options.memory_mb)
+            self.setup, self.templates = setup, templates
+            try:
+                self.worker.conn.recv()
+            except (EOFError, OSError):
+                note = self.worker.exit_note()
+                self.close()
+                raise RuntimeError(f"a worker process could not start ({note})") from None
+        w = self.worker
+        kind, path, page = task
+        started = time.monotonic()
+        w.send((kind, 0, path, page))
+        ready = wait([w.conn], timeout=options.page_timeout)
+        if w.conn in ready:
+            try:
+                _, _, _, out, retire = w.conn.recv()
+                if retire:
+                    self.close()
+                return out
+            except (EOFError, OSError):
+                why = w.exit_note()
+        else:
+            why = _timeout_note(options.page_timeout)
+        self.close()
+        return failed_task(kind, path, page, why, time.monotonic() - started)
+
+    def close(self) -> None:
+        if self.worker is not None:
+            self.worker.kill()
+        self.worker, self.setup, self.templates = None, None, None
+
+    templates = None
 
 
-def _dask_page(path: str, page: int, templates, settings: CheckSettings, limits: ReadLimits) -> dict:
-    with _DASK_LOCK:  # one document, one page at a time per worker process
-        return check_one(path, page, templates, settings, limits)
+_RUNNER = _TaskRunner()
+_DASK_LOCK = threading.Lock()
 
 
-import threading as _threading  # noqa: E402
+def _dask_task(kind: str, path: str, page: int | None, templates, settings: CheckSettings, limits: ReadLimits,
+               options: BatchOptions):
+    """A Dask task: plan a file or check a page, in this Dask worker's own page worker process."""
+    with _DASK_LOCK:  # one document, one page at a time per Dask worker process
+        if options.in_process:
+            return plan_file(path, limits) if kind == "plan" else check_one(path, page, templates, settings, limits)
+        return _RUNNER.run((kind, path, page), templates, settings, limits, options)
 
-_DASK_LOCK = _threading.Lock()
 
-
-def _run_dask(files, templates, settings, limits, options: BatchOptions, order: _Order) -> None:
-    from distributed import Client, LocalCluster, as_completed
+def _run_dask(files, templates, settings, limits, options: BatchOptions, order: _Order, stop: _Stop) -> None:
+    from distributed import Client, LocalCluster, wait as dask_wait
 
     cluster = None
     if options.scheduler:
@@ -636,26 +886,33 @@ def _run_dask(files, templates, settings, limits, options: BatchOptions, order: 
 
         tmpl = client.scatter([as_index(templates)], broadcast=True)[0]  # one object, on every worker
         sched = _Scheduler(files, order, window=nthreads * 4)
-        pending = as_completed([], with_results=True)
         meta: dict = {}
 
         def submit_ready() -> None:
-            while True:
+            while not stop.requested:
                 t = sched.next_task()
                 if t is None:
                     return
-                if t[0] == "plan":
-                    fut = client.submit(_dask_plan, files[t[1]], limits, key=f"plan-{t[1]}-{time.monotonic_ns()}", pure=False)
-                else:
-                    fut = client.submit(_dask_page, files[t[1]], t[2], tmpl, settings, limits,
-                                        key=f"page-{t[1]}-{t[2]}-{time.monotonic_ns()}", pure=False)
-                meta[fut.key] = t
-                pending.add(fut)
+                page = t[2] if t[0] == "page" else None
+                fut = client.submit(_dask_task, t[0], files[t[1]], page, tmpl, settings, limits, options,
+                                    key=f"{t[0]}-{t[1]}-{page}-{time.monotonic_ns()}", pure=False)
+                meta[fut.key] = (fut, t)
 
         submit_ready()
         while not sched.finished():
-            fut, out = next(pending)
-            _settle(sched, order, meta.pop(fut.key), out)
+            running = [f for f, _ in meta.values()]
+            if stop.requested and (stop.over(options.grace_seconds) or not running):
+                client.cancel(running)
+                return  # pages still running get no record: resume does them
+            try:
+                # Wake at least twice a second, so a signal is acted on soon.
+                dask_wait(running, timeout=0.5, return_when="FIRST_COMPLETED")
+            except TimeoutError:
+                continue
+            for fut in running:
+                if fut.done():
+                    _, t = meta.pop(fut.key)
+                    _settle(sched, order, t, fut.result())
             submit_ready()
     finally:
         client.close()

@@ -263,6 +263,8 @@ class CheckSettings:
         named = [r for f, r in self.expect_revision if f == form]
         anyform = [r for f, r in self.expect_revision if f is None]
         return (named or anyform or [None])[0]
+    #: Let a normalised image replace the file of the same name (only a resumed run does).
+    normalise_replace: bool = False
 
 
 def judged_mask(tp_elements, input_elements: PageElements) -> np.ndarray:
@@ -382,6 +384,8 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
 
             cap = prepare(page, camera=not page.dpi_stated)
         found = extract(page if cap is None else cap.page)
+    except MemoryError:  # the worker answers for its memory limit
+        raise
     except Exception as exc:  # an extractor bug on one page must not end the batch
         msg = f"{where(page.source, page.page)}: elements could not be read ({type(exc).__name__}: {exc})"
         return error_record(page.source, page.page, msg, (time.perf_counter() - t0) * 1000)
@@ -700,7 +704,7 @@ def handoff(rec: dict, page, found: PageElements, tp: TemplatePage, match: Match
             eff = (rec.get("effective_dpi") or {}).get("centre")
             dpi = settings.normalise_dpi or (float(min(USUAL_DPI, key=lambda u: abs(u - eff))) if eff else None)
             rec["normalised"] = normalise_page(page, match.pose, (tp.width, tp.height), settings.normalise_dir,
-                                               dpi, settings.normalise_format)
+                                               dpi, settings.normalise_format, replace=settings.normalise_replace)
     return rec
 
 

@@ -2,7 +2,8 @@
 
 Thin on purpose: everything a library user would also need lives in :mod:`layoutcheck.api`, the
 only part of the library this module uses.
-Exit codes: 0 every page passed, 1 some page did not, 2 usage error or unreadable template.
+Exit codes (:mod:`layoutcheck.exitcodes`): 0 every page passed, 1 some page did not, 2 usage
+error or unreadable template, 3 records or report incomplete (a write failed, or interrupted).
 """
 
 from __future__ import annotations
@@ -14,18 +15,23 @@ import click
 from click_option_group import optgroup
 
 from . import __version__
-from .api import (BatchOptions, CheckSettings, LearnError, ReadLimits, TemplateError, Tolerances, alike_templates,
+from .api import (EXIT_FLAGGED, EXIT_HELP, EXIT_INCOMPLETE, EXIT_PASS, EXIT_USAGE, MEMORY_MB, PAGE_TIMEOUT_S,
+                  BatchOptions, CheckSettings, OutputError, LearnError, ReadLimits, TemplateError, Tolerances, alike_templates,
                   expand_inputs, open_template_index,
                   learn as learn_template, learning_summary, load_templates as api_load_templates, parse_pages,
                   run_batch, save_template, summary_table, update_template, write_report)
-
-EXIT_PASS, EXIT_FLAGGED, EXIT_USAGE = 0, 1, 2
 
 
 class TemplateProblem(click.ClickException):
     """An unreadable template: exit code 2, one line."""
 
     exit_code = EXIT_USAGE
+
+
+class Incomplete(click.ClickException):
+    """Records or report could not be written: exit code 3, one line."""
+
+    exit_code = EXIT_INCOMPLETE
 
 
 def load_templates(paths, warn=None):
@@ -198,14 +204,18 @@ def handoff_options(f):
 
 
 def batch_options(resume: bool = True):
-    """``--jobs``, ``--resume``, ``--page-timeout``, ``--engine``, ``--scheduler``, passed on as
-    one ``batch`` dict (see :mod:`layoutcheck.batch`); ``watch`` always resumes, so has no ``--resume``."""
+    """``--jobs``, ``--resume``, ``--engine``, ``--scheduler`` and the limits (``--page-timeout``,
+    ``--max-memory``, ``--max-content-mb``, ``--max-drawing-ops``), passed on as one ``batch``
+    dict (see :mod:`layoutcheck.batch`); ``watch`` always resumes, so has no ``--resume``."""
     import functools
 
     def apply(f):
         @functools.wraps(f)
-        def inner(*args, jobs, page_timeout, engine, scheduler, resume=False, **kwargs):
-            batch = {"jobs": jobs, "resume": resume, "page_timeout": page_timeout, "engine": engine, "scheduler": scheduler}
+        def inner(*args, jobs, page_timeout, max_memory, max_content_mb, max_drawing_ops, engine, scheduler,
+                  resume=False, **kwargs):
+            batch = {"jobs": jobs, "resume": resume, "page_timeout": page_timeout or None, "memory_mb": max_memory or None,
+                     "max_content_bytes": int(max_content_mb * 1024 * 1024), "max_drawing_ops": max_drawing_ops,
+                     "engine": engine, "scheduler": scheduler}
             return f(*args, batch=batch, **kwargs)
 
         return _stack(inner, [
@@ -213,13 +223,25 @@ def batch_options(resume: bool = True):
             optgroup.option("-j", "--jobs", type=click.IntRange(min=1), default=1, show_default=True, help="Pages checked at once, in worker processes."),
             *([optgroup.option("--resume", is_flag=True, help="Continue an interrupted run: keep the records in --json FILE, check only the pages not there.")]
               if resume else []),
-            optgroup.option("--page-timeout", type=click.FloatRange(min=0, min_open=True), default=None, metavar="SECONDS",
-                            help="Most seconds one page may take; its worker is then replaced and the page gets an error record."),
+            optgroup.option("--page-timeout", type=click.FloatRange(min=0), default=PAGE_TIMEOUT_S, show_default=True, metavar="SECONDS",
+                            help="Most seconds one page may take; its worker is then replaced and the page gets an error record (0: no limit)."),
+            optgroup.option("--max-memory", type=click.IntRange(min=0), default=MEMORY_MB, show_default=True, metavar="MB",
+                            help="Memory per worker process; a page that needs more gets an error record and its worker is replaced (0: no limit)."),
+            optgroup.option("--max-content-mb", type=click.FloatRange(min=0, min_open=True), default=ReadLimits.max_content_bytes / 1024 / 1024,
+                            show_default=True, metavar="MB", help="Largest decoded content of one PDF page; a page with more gets an error record."),
+            optgroup.option("--max-drawing-ops", type=click.IntRange(min=1), default=ReadLimits.max_drawing_ops, show_default=True,
+                            metavar="N", help="Most path operations drawn on one PDF page; a page with more gets an error record."),
             optgroup.option("--engine", type=click.Choice(["local", "dask"]), default="local", show_default=True,
                             help="Run pages in local worker processes, or on Dask distributed (a local cluster unless --scheduler)."),
             optgroup.option("--scheduler", metavar="ADDRESS", help="Dask scheduler to run on, e.g. tcp://scheduler-host:8786 (with --engine dask)."),
         ])
     return apply
+
+
+def read_limits(dpi, password, max_pages, max_pixels, batch) -> ReadLimits:
+    """The read limits of ``verify`` and ``watch`` from their options."""
+    return ReadLimits(max_pixels=max_pixels, max_pages=max_pages, dpi=dpi, password=password,
+                      max_content_bytes=batch["max_content_bytes"], max_drawing_ops=batch["max_drawing_ops"])
 
 
 class ProgressBar:
@@ -248,7 +270,7 @@ def _progress(quiet: bool):
     return None if quiet or not sys.stderr.isatty() else ProgressBar
 
 
-@main.command()
+@main.command(epilog=EXIT_HELP)
 @click.argument("template", type=click.Path(exists=True))
 @click.argument("inputs", nargs=-1, required=True)
 @input_options
@@ -267,7 +289,7 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     templates = load_templates([template, *more_templates])
     tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, min_dpi)
     settings = CheckSettings(tolerances=tol, expect_revision=expected_revisions(expect_revision, templates), **handoff)
-    limits = ReadLimits(max_pixels=max_pixels, max_pages=max_pages, dpi=dpi, password=password)
+    limits = read_limits(dpi, password, max_pages, max_pixels, batch)
     if batch["resume"] and (not json_out or json_out == "-"):
         raise click.UsageError("--resume needs --json FILE (the run's output file)")
     if batch["scheduler"] and batch["engine"] != "dask":
@@ -276,8 +298,9 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     if not files:
         raise click.UsageError("no input files given")
     try:
-        options = BatchOptions(jobs=batch["jobs"], page_timeout=batch["page_timeout"], engine=batch["engine"],
-                               scheduler=batch["scheduler"], resume=batch["resume"], keep_records=bool(report_out) or not quiet)
+        options = BatchOptions(jobs=batch["jobs"], page_timeout=batch["page_timeout"], memory_mb=batch["memory_mb"],
+                               engine=batch["engine"], scheduler=batch["scheduler"], resume=batch["resume"],
+                               keep_records=bool(report_out) or not quiet)
     except ValueError as exc:
         raise click.UsageError(str(exc)) from None
     make_bar = _progress(quiet)
@@ -285,6 +308,8 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     try:
         result = run_batch(files, templates, settings, limits, output=json_out, options=options,
                            progress=bar.update_to if bar else None)
+    except OutputError as exc:
+        raise Incomplete(str(exc)) from None
     finally:
         if bar is not None:
             bar.close()
@@ -296,11 +321,14 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     if not quiet and records:
         click.echo("\n".join(summary_table(records).split("\n")[:-1]), err=to_err)
     click.echo(result.summary(), err=to_err)
-    sys.exit(EXIT_PASS if result.all_pass else EXIT_FLAGGED)
+    sys.exit(EXIT_INCOMPLETE if result.interrupted else EXIT_PASS if result.all_pass else EXIT_FLAGGED)
 
 
 def _write_report(path, records, templates, tolerances):
-    write_report(path, records, templates, tolerances)
+    try:
+        write_report(path, records, templates, tolerances)
+    except OSError as exc:
+        raise Incomplete(f"{exc.filename or path}: report could not be written ({exc.strerror or type(exc).__name__})") from None
 
 
 @main.command("templates")
@@ -330,7 +358,7 @@ def templates_command(template_dir, neighbours):
     sys.exit(EXIT_FLAGGED if pairs or index.problems else EXIT_PASS)
 
 
-@main.command()
+@main.command(epilog=EXIT_HELP)
 @click.argument("template", type=click.Path(exists=True))
 @click.argument("inbox", type=click.Path(exists=True, file_okay=False))
 @optgroup.group("Watching")
@@ -364,10 +392,10 @@ def watch(template, inbox, out_dir, once, settle, json_out, report_out, dpi, pas
     templates = load_templates([template, *more_templates])
     tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, min_dpi)
     settings = CheckSettings(tolerances=tol, expect_revision=expected_revisions(expect_revision, templates), **handoff)
-    limits = ReadLimits(max_pixels=max_pixels, max_pages=max_pages, dpi=dpi, password=password)
+    limits = read_limits(dpi, password, max_pages, max_pixels, batch)
     try:
-        options = BatchOptions(jobs=batch["jobs"], page_timeout=batch["page_timeout"], engine=batch["engine"],
-                               scheduler=batch["scheduler"])
+        options = BatchOptions(jobs=batch["jobs"], page_timeout=batch["page_timeout"], memory_mb=batch["memory_mb"],
+                               engine=batch["engine"], scheduler=batch["scheduler"])
         ws = WatchSettings(settle=settle, once=once, records=json_out, report=report_out)
     except ValueError as exc:
         raise click.UsageError(str(exc)) from None
@@ -384,7 +412,7 @@ def watch(template, inbox, out_dir, once, settle, json_out, report_out, dpi, pas
     summary = run_watch(inbox, out_dir, templates, settings, limits, options, ws, log=log, progress_factory=make_bar)
     files = summary.files
     click.echo(f"{sum(files.values())} file(s) filed: {files['pass']} pass, {files['review']} review, {files['error']} error")
-    sys.exit(EXIT_PASS if summary.all_pass else EXIT_FLAGGED)
+    sys.exit(EXIT_INCOMPLETE if summary.interrupted else EXIT_PASS if summary.all_pass else EXIT_FLAGGED)
 
 
 @main.command()

@@ -12,7 +12,11 @@ sides before ``cv2.warpAffine`` samples it.
 
 from __future__ import annotations
 
+import contextlib
+import errno
+import hashlib
 import os
+import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -144,7 +148,11 @@ def normalise_image(image: np.ndarray, input_dpi: float, pose: Pose, template_si
 
 
 def write_image(norm: Normalised, path: str | os.PathLike, fmt: str = "png") -> str:
-    """Write a normalised image with its dpi: PNG, or TIFF (group 4 when bitonal, else LZW)."""
+    """Write a normalised image with its dpi: PNG, or TIFF (group 4 when bitonal, else LZW).
+
+    Written to a temporary file beside ``path`` and renamed over it, so ``path`` is whole or
+    untouched; the temporary file is removed when writing fails.
+    """
     from PIL import Image
 
     fmt = fmt.lower()
@@ -154,29 +162,60 @@ def write_image(norm: Normalised, path: str | os.PathLike, fmt: str = "png") -> 
     if norm.bitonal:
         im = im.convert("1", dither=Image.Dither.NONE)
     dpi = (norm.dpi, norm.dpi)
-    tmp = f"{path}.tmp"
-    if fmt == "png":
-        im.save(tmp, format="PNG", dpi=dpi, compress_level=3)  # 4x faster than the default, 10 % larger
-    else:
-        im.save(tmp, format="TIFF", dpi=dpi, compression="group4" if norm.bitonal else "tiff_lzw")
-    os.replace(tmp, path)
+    folder, name = os.path.split(os.fspath(path))
+    fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".tmp", dir=folder or ".")
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            if fmt == "png":
+                im.save(fh, format="PNG", dpi=dpi, compress_level=3)  # 4x faster than the default, 10 % larger
+            else:
+                im.save(fh, format="TIFF", dpi=dpi, compression="group4" if norm.bitonal else "tiff_lzw")
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        raise
     return str(path)
 
 
 def output_path(out_dir: str | os.PathLike, source: str, page: int, fmt: str = "png") -> Path:
-    """``<dir>/<input stem>_p<page>.<png|tiff>``, absolute (records name files absolutely)."""
+    """``<dir>/<input stem>-<key>_p<page>.<png|tiff>``, absolute (records name files absolutely).
+
+    ``key`` is the first 8 hex digits of the SHA-256 of the input's absolute path: inputs of the
+    same name in different folders get different images, and the same input always the same name.
+    """
     stem = Path(source).stem or "page"
-    return Path(os.path.abspath(out_dir)) / f"{stem}_p{page}.{fmt.lower()}"
+    key = hashlib.sha256(os.path.abspath(source).encode("utf-8", "surrogateescape")).hexdigest()[:8]
+    return Path(os.path.abspath(out_dir)) / f"{stem}-{key}_p{page}.{fmt.lower()}"
+
+
+def claim_path(path: Path, replace: bool = False, tries: int = 1000) -> Path:
+    """The file to write for ``path``: ``path`` itself when free or when ``replace``; otherwise
+    the first free ``<stem>-2<suffix>``, ``-3``, ... An unused name is reserved atomically (an
+    empty file created with ``O_EXCL``), so two writers never take the same one.
+    """
+    if replace:
+        return path
+    for k in range(1, tries + 1):
+        cand = path if k == 1 else path.with_name(f"{path.stem}-{k}{path.suffix}")
+        try:
+            os.close(os.open(cand, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644))
+            return cand
+        except FileExistsError:
+            continue
+    raise FileExistsError(errno.EEXIST, f"{tries} images of this name exist already", str(path))
 
 
 def normalise_page(page, pose: Pose, template_size_pt: tuple[float, float], out_dir: str | os.PathLike,
-                   dpi: float | None = None, fmt: str = "png", limits=None) -> dict:
+                   dpi: float | None = None, fmt: str = "png", limits=None, replace: bool = False) -> dict:
     """Write the normalised image of one input page; the record's ``normalised`` field.
 
     ``page`` is a :class:`~layoutcheck.sources.RasterPage` (resampled at its own dpi, or ``dpi``)
     or a :class:`~layoutcheck.sources.VectorPage` (rendered at ``dpi`` or :data:`VECTOR_DPI`
     first). Returns ``{"path", "dpi"}``, or ``{"path": None, "dpi", "error"}`` when the page
-    could not be rendered or written.
+    could not be rendered or written. The file is named by :func:`output_path`; an existing file
+    is never replaced unless ``replace`` (a resumed run redoing the page): a clash gets a
+    numbered name (:func:`claim_path`).
     """
     from .sources import PageError, RasterPage, ReadLimits, VectorPage, render_pdf_page, where
 
@@ -193,7 +232,14 @@ def normalise_page(page, pose: Pose, template_size_pt: tuple[float, float], out_
             return {"path": None, "dpi": out_dpi, "error": f"{where(page.source, page.page)}: no image to normalise"}
         norm = normalise_image(raster.image, raster.dpi, pose, template_size_pt, out_dpi, bool(raster.bitonal))
         os.makedirs(out_dir, exist_ok=True)
-        path = write_image(norm, output_path(out_dir, page.source, page.page, fmt), fmt)
+        target = claim_path(output_path(out_dir, page.source, page.page, fmt), replace)
+        try:
+            path = write_image(norm, target, fmt)
+        except BaseException:
+            if not replace:  # give back the name reserved for it
+                with contextlib.suppress(OSError):
+                    os.unlink(target)
+            raise
     except (OSError, ValueError, cv2.error) as exc:
         return {"path": None, "dpi": out_dpi, "error": f"{where(page.source, page.page)}: normalised image not written ({' '.join(str(exc).split())})"}
     return {"path": path, "dpi": norm.dpi}

@@ -7,9 +7,14 @@ A file becomes an iterator of pages, each one of
 - :class:`RasterPage` — a grey ``uint8`` image (0 black, 255 white) with its resolution, from PNG,
   JPEG, TIFF (every frame) or from a PDF page that only wraps a scanned image;
 - :class:`PageError` — a page (or a whole file) that could not be read, with a one-line message
-  naming the file and page. Reading never raises for bad input: the batch carries on.
+  naming the file and page. Reading never raises for bad input: the batch carries on. (A
+  :class:`MemoryError` is passed on, so a worker under a memory limit can answer for it.)
 
-Limits (pixels, pages, password) are enforced here, before anything large is decoded.
+Limits (pixels, pages, password, decoded content and drawing operations of a PDF page) are
+enforced here, before anything large is decoded or parsed. A PDF page's content is checked
+against its limits first, by inflating its streams no further than the limit; then pypdfium2
+alone tells an image-only page (a scan) and renders it, so pdfminer parses the content of
+born-digital pages only.
 """
 
 from __future__ import annotations
@@ -17,7 +22,10 @@ from __future__ import annotations
 import contextlib
 import io
 import os
+import re
 import warnings
+import zlib
+from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Iterator, Union
@@ -43,6 +51,17 @@ class ReadLimits:
     max_pixels: int = 300_000_000
     #: Most pages read from one file.
     max_pages: int = 2000
+    #: Largest decoded content of one PDF page (its content streams and the form XObjects it
+    #: draws), in bytes. A form page holds tens of KB. 8 MB refuses a compressed "bomb" (a small
+    #: file whose content inflates to hundreds of MB) before anything parses it; it is inflated
+    #: only as far as the limit.
+    max_content_bytes: int = 8 * 1024 * 1024
+    #: Most path operations (move, line, curve, rectangle, paint) drawn on one PDF page, counting
+    #: a form XObject once per use. A ruled form has a few thousand. Reading them runs at about
+    #: 8,000 a second on a shared 2-core machine and takes 1.2 to 1.5 KB of memory each
+    #: (``bench/bench_hostile.py``), so 250,000 stays near half the default page time limit and
+    #: a quarter of the memory limit.
+    max_drawing_ops: int = 250_000
     #: Resolution to assume for images that do not state one; None means refuse them.
     dpi: float | None = None
     #: Password for encrypted PDFs.
@@ -111,9 +130,15 @@ class InputError(Exception):
     """Bad input: the message is one line naming the file and page."""
 
 
+def printable(name: str) -> str:
+    """A file name as one printable line: control characters (a newline in a name) and bytes
+    that are not UTF-8 are written as escapes."""
+    return "".join(c if c.isprintable() else repr(c)[1:-1] for c in name)
+
+
 def where(source: str, page: int | None) -> str:
     """``scan.tif page 3`` or ``scan.tif`` for messages."""
-    name = os.path.basename(source) or source
+    name = printable(os.path.basename(source) or source)
     return f"{name} page {page}" if page is not None else name
 
 
@@ -186,9 +211,13 @@ def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pa
                 return _PdfDocument.open(source, limits, pages, data)
             return _ImageDocument.open(source, limits, pages, data)
         if not p.exists():
+            if os.path.islink(source):
+                return _failed(source, "a symbolic link that leads nowhere (a loop, or its target is missing)")
             return _failed(source, "no such file")
         if p.is_dir():
             return _failed(source, "is a folder, not a file")
+        if not p.is_file():  # a pipe or a device may never end
+            return _failed(source, "not a regular file (a pipe or a device?)")
         if p.stat().st_size == 0:
             return _failed(source, "empty file (0 bytes)")
         head = _head(p, 1024)
@@ -197,6 +226,10 @@ def open_document(path: str | os.PathLike, limits: ReadLimits = ReadLimits(), pa
         if p.suffix.lower() in PDF_EXTENSIONS:
             return _failed(source, "not a PDF (no %PDF header)")
         return _ImageDocument.open(source, limits, pages)
+    except MemoryError:  # the worker answers for its memory limit
+        raise
+    except OSError as exc:  # no permission, an I/O error: the system's words, without the path
+        return _failed(source, f"cannot be opened ({exc.strerror or type(exc).__name__})")
     except Exception as exc:  # last line of defence: a reader bug must not end the batch
         return _failed(source, f"could not be read ({type(exc).__name__}: {_one_line(exc)})")
 
@@ -254,6 +287,8 @@ class _ImageDocument(Document):
             return _failed(source, f"image is over the pixel limit; not decoded ({_one_line(exc)})")
         except UnidentifiedImageError:
             return _failed(source, "not an image this tool reads (PNG, JPEG, TIFF or PDF)")
+        except MemoryError:  # the worker answers for its memory limit
+            raise
         except Exception as exc:
             return _failed(source, f"image header is damaged ({_one_line(exc)})")
         try:
@@ -265,6 +300,8 @@ class _ImageDocument(Document):
     def page(self, n: int) -> Page:
         try:
             self._img.seek(n - 1)
+        except MemoryError:  # the worker answers for its memory limit
+            raise
         except Exception as exc:
             return PageError(self.source, n, f"{where(self.source, n)}: frame could not be reached ({_one_line(exc)})")
         return image_page(self.source, n, self._img, self._limits)
@@ -316,6 +353,8 @@ def image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
         # Pillow hands the pixels over as a bytes copy of its buffer: the array is the page's own
         # (read-only: nothing downstream writes into a page).
         arr = np.asarray(im, dtype=np.uint8)
+    except MemoryError:  # the worker answers for its memory limit
+        raise
     except Exception as exc:
         return PageError(source, n, f"{where(source, n)}: image data is damaged ({_one_line(exc)})")
     if not stated:
@@ -375,14 +414,22 @@ class _PdfDocument(Document):
         self._pdfium = None
         self._walker = None
         self._seen: list = []  # pdfminer page objects walked so far (small)
+        self._fh = None
 
     @classmethod
     def open(cls, source: str, limits: ReadLimits, pages: set[int] | None, data: bytes | None = None) -> Document:
         import pdfplumber
 
+        # The file is opened here and closed by us on every path: pdfplumber closes a file it
+        # opened itself only for some of the errors a damaged file can raise.
+        fh = io.BytesIO(data) if data is not None else open(source, "rb")
         try:
-            pdf = pdfplumber.open(io.BytesIO(data) if data is not None else source, password=limits.password or "")
+            pdf = pdfplumber.open(fh, password=limits.password or "")
+        except MemoryError:  # the worker answers for its memory limit
+            fh.close()
+            raise
         except Exception as exc:
+            fh.close()
             if _is_password_error(exc):
                 return _failed(source, "PDF is " + ("encrypted and the password is wrong" if limits.password
                                                     else "encrypted; give --password"))
@@ -391,17 +438,20 @@ class _PdfDocument(Document):
             count = _pdfium_count(data if data is not None else source, limits)
             if count is None:
                 count = len(pdf.pages)
+        except MemoryError:  # the worker answers for its memory limit
+            fh.close()
+            raise
         except Exception as exc:
-            with contextlib.suppress(Exception):
-                pdf.close()
+            fh.close()
             if _is_password_error(exc):
                 return _failed(source, "PDF is encrypted; give --password")
             return _failed(source, f"damaged PDF page tree ({_one_line(exc)})")
         if count == 0:
-            with contextlib.suppress(Exception):
-                pdf.close()
+            fh.close()
             return _failed(source, "PDF has no pages (empty or broken page tree)")
-        return cls(source, _numbers(source, count, limits, pages), pdf, limits, data)
+        doc = cls(source, _numbers(source, count, limits, pages), pdf, limits, data)
+        doc._fh = fh
+        return doc
 
     def release(self) -> None:
         if self._open_page is not None:
@@ -410,24 +460,54 @@ class _PdfDocument(Document):
             self._open_page = None
 
     def page(self, n: int) -> Page:
+        """Page ``n``: content limits first, then an image-only page is rendered by pypdfium2
+        alone; only a born-digital page has its content parsed by pdfplumber."""
         self.release()
         try:
-            pl = self._plumber_page(n)
+            obj = self._page_object(n)
+            problem = content_problem(obj, self._pdf.doc, self._limits)
+            if problem:
+                return PageError(self.source, n, f"{where(self.source, n)}: {problem}")
+            scan = self._scan_check(n)
+            if isinstance(scan, PageError):
+                return scan
+            if scan is not None:
+                return self._render(n, scan)
+            import pdfplumber.page
+
+            pl = pdfplumber.page.Page(self._pdf, obj, page_number=n)
             self._open_page = pl
+            # Parsed here, while the file is open: a caller may keep the page after the
+            # document is closed (the last page of ``read_pages``), and extraction needs it all.
+            pl.layout
             width, height, rot = _display_size(pl)
-            if is_scanned_page(pl):
-                dpi = _image_dpi(pl, width)
-                self.release()
-                return self._render(n, dpi)
             return VectorPage(self.source, n, width, height, pl, rot, self.source, self._data)
+        except MemoryError:  # the worker answers for its memory limit
+            raise
         except Exception as exc:
             self.release()
             return PageError(self.source, n, f"{where(self.source, n)}: damaged page ({_one_line(exc)})")
 
-    def _plumber_page(self, n: int):
-        """Page ``n``, walking the page tree only as far as needed (a long file costs no more
-        than its pages read)."""
-        import pdfplumber.page
+    def _pdfium_doc(self):
+        import pypdfium2 as pdfium
+
+        if self._pdfium is None:
+            self._pdfium = pdfium.PdfDocument(self._data if self._data is not None else self.source,
+                                              password=self._limits.password)
+        return self._pdfium
+
+    def _scan_check(self, n: int) -> float | PageError | None:
+        """The dpi to render page ``n`` at when it only wraps a scanned image, else None; a
+        :class:`PageError` when one of its images is over the pixel limit."""
+        page = self._pdfium_doc()[n - 1]
+        try:
+            return scanned_page_dpi(page, self.source, n, self._limits)
+        finally:
+            page.close()
+
+    def _page_object(self, n: int):
+        """pdfminer's page ``n``, walking the page tree only as far as needed (a long file costs
+        no more than its pages read)."""
         from pdfminer.pdfpage import PDFPage
 
         if self._walker is None:
@@ -437,33 +517,27 @@ class _PdfDocument(Document):
             if obj is None:
                 raise IndexError(f"the page tree holds {len(self._seen)} pages")
             self._seen.append(obj)
-        return pdfplumber.page.Page(self._pdf, self._seen[n - 1], page_number=n)
+        return self._seen[n - 1]
 
     def _render(self, n: int, dpi: float) -> Page:
         import pypdfium2 as pdfium
 
-        if self._pdfium is None:
-            try:
-                self._pdfium = pdfium.PdfDocument(self._data if self._data is not None else self.source,
-                                                  password=self._limits.password)
-            except pdfium.PdfiumError as exc:
-                return PageError(self.source, n, f"{where(self.source, n)}: could not be rendered ({_one_line(exc)})")
-        return _render_page(self._pdfium, self.source, n, self._limits, dpi)
+        try:
+            doc = self._pdfium_doc()
+        except pdfium.PdfiumError as exc:
+            return PageError(self.source, n, f"{where(self.source, n)}: could not be rendered ({_one_line(exc)})")
+        return _render_page(doc, self.source, n, self._limits, dpi)
 
     def close(self) -> None:
         self.release()
-        pdf = self._pdf
         if self._pdfium is not None:
             with contextlib.suppress(Exception):
                 self._pdfium.close()
-        if pdf is not None:
-            with contextlib.suppress(Exception):
-                # pdfplumber's own close() walks every page first; we never built its page list.
-                if not hasattr(pdf, "_pages") and getattr(pdf, "stream_is_external", True) is False:
-                    pdf.stream.close()
-                else:
-                    pdf.close()
-        self._pdfium = self._pdf = None
+        # Not pdfplumber's close(): it walks every page of the file first, to flush caches of
+        # pages this document never built. Closing the file is all there is to do.
+        if self._fh is not None:
+            self._fh.close()
+        self._pdfium = self._pdf = self._fh = None
 
 
 def _pdfium_count(source: str | bytes, limits: ReadLimits) -> int | None:
@@ -490,32 +564,153 @@ def _display_size(pl) -> tuple[float, float, int]:
     return float(x1 - x0), float(bottom - top), rot
 
 
-def is_scanned_page(pl) -> bool:
-    """A page that only wraps a scanned image: one image over most of it and no drawn rules.
+def scanned_page_dpi(page, source: str, n: int, limits: ReadLimits) -> float | PageError | None:
+    """Resolution of a pypdfium2 page that only wraps a scanned image, else None.
 
-    An invisible text layer (from an earlier OCR) does not make it born-digital.
+    Such a page holds one image over most of it (70 %) and few drawn paths (under 5); an
+    invisible text layer (from an earlier OCR) does not make it born-digital. Its resolution is
+    the one pdfium reads off the largest image's pixel size and placement. An image whose
+    stated size is over ``limits.max_pixels`` gives a :class:`PageError` before anything
+    decodes it, on any page.
     """
-    images = pl.images
-    if not images:
-        return False
-    area = float(pl.width * pl.height)
-    big = max((float(i["x1"] - i["x0"]) * float(i["bottom"] - i["top"]) for i in images), default=0.0)
-    drawn = len(pl.lines) + len(pl.rects) + len(pl.curves)
-    return big >= 0.7 * area and drawn < 5
+    import pypdfium2 as pdfium
+
+    w, h = page.get_size()
+    area = float(w * h)
+    paths, big, dpi = 0, 0.0, None
+    for obj in page.get_objects(max_depth=4):
+        if obj.type == pdfium.raw.FPDF_PAGEOBJ_PATH:
+            paths += 1
+        elif obj.type == pdfium.raw.FPDF_PAGEOBJ_IMAGE:
+            meta = obj.get_metadata()
+            if int(meta.width) * int(meta.height) > limits.max_pixels:
+                return PageError(source, n, f"{where(source, n)}: an image of {meta.width} x {meta.height} pixels is over the "
+                                            f"limit of {limits.max_pixels:,} pixels; not decoded")
+            x0, y0, x1, y1 = obj.get_bounds()
+            size = float(x1 - x0) * float(y1 - y0)
+            if size > big:
+                big, dpi = size, max(float(meta.horizontal_dpi), float(meta.vertical_dpi))
+    if big >= 0.7 * area and paths < 5:
+        return snap_dpi(dpi) or 200.0
+    return None
 
 
-def _image_dpi(pl, page_width: float) -> float:
-    """Resolution of the page's largest image: its pixel width over its width in inches."""
-    img = max(pl.images, key=lambda i: float(i["x1"] - i["x0"]) * float(i["bottom"] - i["top"]))
-    px_w, px_h = img.get("srcsize", (0, 0))
-    w_in = float(img["x1"] - img["x0"]) / POINTS_PER_INCH
-    h_in = float(img["bottom"] - img["top"]) / POINTS_PER_INCH
-    rot = int(pl.rotation or 0) % 360
-    # On a page turned by /Rotate the image's pixel rows may run along the page's other side.
-    if rot in (90, 270):
-        w_in, h_in = h_in, w_in
-    dpi = max(px_w / w_in if w_in else 0, px_h / h_in if h_in else 0)
-    return snap_dpi(dpi) or 200.0
+#: Path construction and painting operators of a PDF content stream (ISO 32000-1, 8.5.2, 8.5.3),
+#: as whole tokens: a delimiter or white space before and after.
+_DRAW_OPS = re.compile(rb"(?<![^\s\])>])(?:re|[mlcvyhSsFn]|[fBb]\*?)(?=[\s\[(/<%]|$)")
+#: ``/Name Do``: draw the XObject ``Name`` (ISO 32000-1, 8.8).
+_DO = re.compile(rb"/([^\s/\[\]()<>{}%]+)\s*Do(?=[\s\[(/<%]|$)")
+
+
+class _OverLimit(Exception):
+    pass
+
+
+def content_problem(page_obj, doc, limits: ReadLimits) -> str | None:
+    """Why a PDF page's content is over a limit, or None, found before anything parses it.
+
+    The page's content streams, and those of the form XObjects it draws (recursively), are
+    inflated with a bounded decoder (never more than ``limits.max_content_bytes`` in all), and
+    their path operators counted, a form once per use (so nested forms that multiply cannot
+    hide their cost).
+    """
+    from pdfminer.pdftypes import PDFStream, resolve1
+
+    budget = [limits.max_content_bytes]
+    memo: dict[int, int] = {}
+
+    def decoded(stream) -> bytes:
+        data = _bounded_data(stream, budget[0])
+        if data is None:
+            raise _OverLimit(f"content is over the limit of {_mb(limits.max_content_bytes)} decoded (--max-content-mb); not read")
+        budget[0] -= len(data)
+        return data
+
+    def ops_of(data: bytes, resources, path: tuple) -> int:
+        count = len(_DRAW_OPS.findall(data))
+        resources = resolve1(resources)
+        xobjects = resolve1(resources.get("XObject")) if isinstance(resources, dict) else None
+        if not isinstance(xobjects, dict):
+            return count
+        for name, uses in Counter(_DO.findall(data)).items():
+            ref = xobjects.get(name.decode("latin-1"))
+            form = resolve1(ref)
+            if not (isinstance(form, PDFStream) and getattr(resolve1(form.attrs.get("Subtype")), "name", None) == "Form"):
+                continue
+            key = getattr(ref, "objid", id(form))
+            if key in path or len(path) > 12:
+                raise _OverLimit("form XObjects draw each other in a loop; not read")
+            if key not in memo:
+                memo[key] = ops_of(decoded(form), form.attrs.get("Resources") or resources, path + (key,))
+            count += uses * memo[key]
+            if count > limits.max_drawing_ops:
+                break
+        return count
+
+    try:
+        contents = page_obj.contents or []
+        data = b"\n".join(decoded(resolve1(s)) for s in contents if isinstance(resolve1(s), PDFStream))
+        ops = ops_of(data, page_obj.resources, ())
+    except _OverLimit as exc:
+        return str(exc)
+    if ops > limits.max_drawing_ops:
+        return f"draws over the limit of {limits.max_drawing_ops:,} path operations (--max-drawing-ops); not read"
+    return None
+
+
+def _inflate(raw: bytes, limit: int) -> bytes | None:
+    """Flate-decoded ``raw``, or None when that is more than ``limit`` bytes.
+
+    Fed in steps, each allowed only what is left of the limit. Damaged data yields what comes
+    before the damage (as pdfminer's own decoder does).
+    """
+    d = zlib.decompressobj()
+    out = bytearray()
+    step = 1 << 16
+    try:
+        for pos in range(0, len(raw), step):
+            out += d.decompress(raw[pos:pos + step], limit + 1 - len(out))
+            while d.unconsumed_tail and len(out) <= limit:
+                out += d.decompress(d.unconsumed_tail, limit + 1 - len(out))
+            if len(out) > limit:
+                return None
+            if d.eof:
+                break
+    except zlib.error:
+        pass
+    return bytes(out)
+
+
+def _mb(nbytes: int) -> str:
+    return f"{nbytes / (1024 * 1024):g} MB"
+
+
+def _bounded_data(stream, limit: int) -> bytes | None:
+    """A stream's decoded bytes, or None when they would be more than ``limit``.
+
+    Flate (the filter content streams use in practice) is inflated in steps that stop at the
+    limit, so a small stream that would inflate to gigabytes costs no more than ``limit``. Other
+    filters go through pdfminer's decoder, refused beforehand when even their input is over.
+    """
+    filters = [getattr(f, "name", f) for f, _ in stream.get_filters()]
+    if stream.data is not None:  # decoded already
+        return stream.data if len(stream.data) <= limit else None
+    raw = stream.rawdata
+    if raw is None:
+        return b""
+    if stream.decipher:  # an encrypted file: its streams are deciphered before decoding
+        raw = stream.decipher(stream.objid, stream.genno, raw, stream.attrs)
+    if all(f in ("FlateDecode", "Fl") for f in filters):
+        data = raw
+        for _ in filters:
+            data = _inflate(data, limit)
+            if data is None:
+                return None
+        return data
+    if len(raw) > limit:
+        return None
+    data = stream.get_data()
+    return None if len(data) > limit else data
 
 
 def render_pdf_page(source: str, n: int, limits: ReadLimits, dpi: float, oversample: int = 1,
@@ -563,6 +758,8 @@ def _render_page(doc, source: str, n: int, limits: ReadLimits, dpi: float) -> Pa
         if arr.ndim == 3:
             arr = arr[..., 0]
         return RasterPage(source, n, arr, float(dpi), False)
+    except MemoryError:  # the worker answers for its memory limit
+        raise
     except Exception as exc:
         return PageError(source, n, f"{where(source, n)}: could not be rendered ({_one_line(exc)})")
     finally:

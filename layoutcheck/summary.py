@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import os
 
+from .sources import printable
 from .verdict import VERDICTS
 
 
@@ -15,7 +16,7 @@ def summary_table(records: list[dict]) -> str:
         what = r["error"] or "; ".join(f["message"] for f in r["findings"][:2]) or "-"
         shift = p.get("shift_mm")
         rows.append((
-            os.path.basename(r["source"]), str(r["page"] if r["page"] is not None else "-"), r["verdict"],
+            printable(os.path.basename(r["source"])), str(r["page"] if r["page"] is not None else "-"), r["verdict"],
             r.get("template") or "-",
             f"{p['rotation_deg']:+.2f}" if p else "-",
             f"{p['scale']:.4f}" if p else "-",

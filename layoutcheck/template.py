@@ -12,8 +12,10 @@ No solving happens here.
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import json
+import math
 import os
 from dataclasses import dataclass, field
 from functools import cached_property
@@ -28,6 +30,16 @@ from .elements import Element, PageElements, frame_contains, frame_overlap, merg
 #: written as version 1, so layoutcheck releases that read only version 1 keep reading it.
 FORMAT_VERSION = 2
 FORMAT_NAME = "layoutcheck-template"
+
+#: Bounds on what a template or zones file may hold; a file beyond them is refused with one line,
+#: before (size) or while (counts, numbers) it is read, so a hostile file costs bounded time and
+#: memory. The demo templates are under 100 KB with under 400 elements a page.
+MAX_JSON_BYTES = 32 * 1024 * 1024
+MAX_PAGES = 1000
+MAX_ITEMS_PER_PAGE = 100_000
+#: Largest page side, points: the PDF format's own limit of 14,400 units (ISO 32000-1, Annex C;
+#: from memory). Element and zone frames may reach at most this far beyond the page.
+MAX_PAGE_POINTS = 14_400.0
 
 
 class TemplateError(Exception):
@@ -392,10 +404,15 @@ def _frame_distance(f: Sequence[float], x: float, y: float) -> float:
 def save_template(template: Template, path: str | os.PathLike) -> None:
     """Write the template as JSON (atomically: a crash never leaves half a file)."""
     tmp = f"{path}.tmp"
-    with open(tmp, "w", encoding="utf-8") as fh:
-        json.dump(template.to_dict(), fh, indent=1, ensure_ascii=False)
-        fh.write("\n")
-    os.replace(tmp, path)
+    try:
+        with open(tmp, "w", encoding="utf-8") as fh:
+            json.dump(template.to_dict(), fh, indent=1, ensure_ascii=False)
+            fh.write("\n")
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)  # a full disk must not leave a stray temporary file
+        raise
 
 
 def template_from_dict(data: object, where: str = "template") -> Template:
@@ -409,6 +426,14 @@ def template_from_dict(data: object, where: str = "template") -> Template:
         raise TemplateError(f"{where}: template format_version {version} is newer than this layoutcheck reads ({FORMAT_VERSION}); upgrade layoutcheck")
     if version < 1:
         raise TemplateError(f"{where}: template format_version {version} is not valid")
+    raw_pages = data.get("pages")
+    if isinstance(raw_pages, list) and len(raw_pages) > MAX_PAGES:
+        raise TemplateError(f"{where}: template has {len(raw_pages):,} pages, more than {MAX_PAGES:,}")
+    for k, p in enumerate(raw_pages if isinstance(raw_pages, list) else [], start=1):
+        for key in ("elements", "raster_elements", "sections", "zones"):
+            items = p.get(key) if isinstance(p, dict) else None
+            if isinstance(items, (list, dict)) and len(items) > MAX_ITEMS_PER_PAGE:
+                raise TemplateError(f"{where}: template page {k} has {len(items):,} {key}, more than {MAX_ITEMS_PER_PAGE:,}")
     try:
         pages = tuple(TemplatePage.from_dict(p) for p in data["pages"])
         name = str(data["name"])
@@ -416,22 +441,28 @@ def template_from_dict(data: object, where: str = "template") -> Template:
         warnings = tuple(str(w) for w in data.get("warnings") or [])
         form = _optional_text(data.get("form"), "form")
         revision = _optional_text(data.get("revision"), "revision")
-    except (KeyError, TypeError, ValueError, IndexError, AttributeError) as exc:
-        raise TemplateError(f"{where}: template is damaged ({type(exc).__name__}: {exc})") from None
+    except (KeyError, TypeError, ValueError, IndexError, AttributeError, OverflowError, RecursionError) as exc:
+        raise TemplateError(f"{where}: template is damaged ({type(exc).__name__}: {' '.join(str(exc).split())[:200]})") from None
     if not pages:
         raise TemplateError(f"{where}: template has no pages")
     for p in pages:
-        if not (p.width > 0 and p.height > 0 and np.isfinite(p.width) and np.isfinite(p.height)):
-            raise TemplateError(f"{where}: template page {p.number} has an invalid size")
+        if not (0 < p.width <= MAX_PAGE_POINTS and 0 < p.height <= MAX_PAGE_POINTS):
+            raise TemplateError(f"{where}: template page {p.number} has an invalid size "
+                                f"(each side must be above 0 and at most {MAX_PAGE_POINTS:g} points)")
         ids = [e.id for e in p.elements]
         if len(set(ids)) != len(ids):
             raise TemplateError(f"{where}: template page {p.number} repeats element ids")
         for e in p.elements + p.raster_elements + p.set_aside:
-            if not all(np.isfinite(v) for v in e.frame):
-                raise TemplateError(f"{where}: template page {p.number} element {e.id} has an invalid frame")
+            if not all(isinstance(v, str) or v is None for v in (e.text, e.caption)):
+                raise TemplateError(f"{where}: template page {p.number} element {e.id[:80]} has text that is not a string")
+            if not _frame_ok(e.frame) or not (e.angle is None or math.isfinite(e.angle)):
+                raise TemplateError(f"{where}: template page {p.number} element {e.id[:80]} has an invalid frame")
+        for s in p.sections:
+            if not _frame_ok(s.frame):
+                raise TemplateError(f"{where}: template page {p.number} section {s.id[:80]} has an invalid frame")
         for z in p.zones:
-            if not all(np.isfinite(v) for v in z.frame):
-                raise TemplateError(f"{where}: template page {p.number} zone {z.name!r} has an invalid frame")
+            if not _frame_ok(z.frame):
+                raise TemplateError(f"{where}: template page {p.number} zone {z.name[:80]!r} has an invalid frame")
     return Template(name, pages, references, warnings, form, revision)
 
 
@@ -445,18 +476,37 @@ def _optional_text(value: object, what: str) -> str | None:
     return text or None
 
 
+def _frame_ok(frame) -> bool:
+    """Four finite numbers, in order (x0 <= x1, top <= bottom), within the bounds of a page."""
+    return (len(frame) == 4 and all(math.isfinite(v) and abs(v) <= 2 * MAX_PAGE_POINTS for v in frame)
+            and frame[0] <= frame[2] and frame[1] <= frame[3])
+
+
 def read_json_file(path: str | os.PathLike, what: str, error: type[Exception]):
     """Parsed JSON of a file; ``error`` with a one-line message naming the file otherwise."""
     where = os.path.basename(str(path))
     try:
-        with open(path, encoding="utf-8") as fh:
-            return json.load(fh)
+        with open(path, "rb") as fh:
+            # Read at most one byte past the limit: a file that is too big, or one that keeps
+            # growing (a pipe, a device), is refused without being read whole.
+            raw = fh.read(MAX_JSON_BYTES + 1)
     except FileNotFoundError:
         raise error(f"{where}: no such {what}{'' if what.endswith('file') else ' file'}") from None
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise error(f"{where}: {what} is not valid JSON ({' '.join(str(exc).split())})") from None
     except OSError as exc:
         raise error(f"{where}: {what} cannot be read ({exc.strerror})") from None
+    if len(raw) > MAX_JSON_BYTES:
+        raise error(f"{where}: {what} is larger than {MAX_JSON_BYTES // (1024 * 1024)} MB; not read")
+    try:
+        return json.loads(raw.decode("utf-8"), parse_constant=_no_constant)
+    except (json.JSONDecodeError, UnicodeDecodeError, ValueError) as exc:
+        raise error(f"{where}: {what} is not valid JSON ({' '.join(str(exc).split())[:200]})") from None
+    except RecursionError:
+        raise error(f"{where}: {what} is nested too deeply to be a {what}") from None
+
+
+def _no_constant(name: str):
+    """NaN and Infinity are not JSON (RFC 8259), though Python's reader accepts them."""
+    raise ValueError(f"{name} is not a JSON number")
 
 
 def load_template(path: str | os.PathLike) -> Template:

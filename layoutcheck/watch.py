@@ -70,6 +70,9 @@ class WatchSummary:
     verdicts: dict = field(default_factory=dict)
     #: Seconds spent drawing review.html.
     report_seconds: float = 0.0
+    #: Stopped by SIGTERM or SIGINT during a round: the files of pages still running then stay in
+    #: the inbox, and a restart takes them.
+    interrupted: bool = False
 
     @property
     def all_pass(self) -> bool:
@@ -293,8 +296,9 @@ class Watcher:
         bar = self.progress_factory(len(paths)) if self.progress_factory else None
         self._filed_this_round = 0
         try:
-            run_batch(paths, self.templates, self.settings, self.limits, output=None, options=self.options,
-                      progress=bar.update_to if bar is not None else None, on_file=self._file)
+            result = run_batch(paths, self.templates, self.settings, self.limits, output=None, options=self.options,
+                               progress=bar.update_to if bar is not None else None, on_file=self._file)
+            self.summary.interrupted = result.interrupted
         finally:
             if bar is not None:
                 bar.close()
@@ -343,6 +347,8 @@ class Watcher:
                 ready = [p for p in present if self._settler.ready(p, now)]
                 if ready:
                     self._round(ready)
+                    if self.summary.interrupted:
+                        break
                     if todo is not None:
                         todo -= set(ready)
                 if todo is not None and not todo:

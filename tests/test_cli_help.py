@@ -30,7 +30,8 @@ def test_verify_options_come_in_groups_in_order():
     g = groups_of(res.output)
     assert tuple(g) == GROUPS
     assert g["Outputs"] == ["--json", "--report", "--quiet"]
-    assert g["Batch"] == ["--jobs", "--resume", "--page-timeout", "--engine", "--scheduler"]
+    assert g["Batch"] == ["--jobs", "--resume", "--page-timeout", "--max-memory", "--max-content-mb", "--max-drawing-ops",
+                          "--engine", "--scheduler"]
     assert g["Tolerances"][0] == "--max-skew" and len(g["Tolerances"]) == 7 and g["Tolerances"][-1] == "--min-dpi"
     # Every option of the command is in exactly one group (only --help stands alone).
     # (the option-group package adds a nameless stand-in option per group heading)

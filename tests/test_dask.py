@@ -46,3 +46,20 @@ def test_dask_records_equal_local_and_resume(cluster, templates, tmp_path):
                     options=BatchOptions(engine="dask", scheduler=cluster.scheduler_address, resume=True))
     assert res.skipped == 5 and res.written == 9
     assert strip(remote) == strip(local)
+
+
+def test_time_limit_holds_inside_dask_tasks(cluster, templates, tmp_path):
+    """The page time limit is enforced inside the task: the page's own worker process is stopped."""
+    import shutil
+
+    from test_hostile import slow_pdf
+
+    slow = slow_pdf(tmp_path / "slow.pdf")
+    good = [str(tmp_path / n) for n in ("good.pdf", "again.pdf")]
+    for g in good:
+        shutil.copy(SAMPLES / "inputs" / "101_exact.pdf", g)
+    opts = BatchOptions(engine="dask", scheduler=cluster.scheduler_address, page_timeout=1.5, keep_records=True)
+    res = run_batch([good[0], str(slow), good[1]], templates, options=opts)
+    assert [r["verdict"] for r in res.records] == ["pass", "error", "pass"]
+    assert res.records[1]["error"] == "slow.pdf page 1: took longer than the page time limit of 1.5 s (--page-timeout); stopped"
+    assert res.records[1]["elapsed_ms"] >= 1500

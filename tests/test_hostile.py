@@ -2,14 +2,18 @@
 
 from __future__ import annotations
 
+import json
+import os
 import shutil
 import struct
+import time
 import zlib
 from pathlib import Path
 
 import numpy as np
 import pytest
 
+import hostile_corpus as H
 from layoutcheck.batch import BatchOptions, run_batch
 from layoutcheck.check import check_page, learn
 from layoutcheck.sources import ReadLimits, read_pages
@@ -214,7 +218,7 @@ def test_page_timeout_replaces_the_worker(tmp_path, templates):
                     options=BatchOptions(jobs=1, page_timeout=1.5, keep_records=True))
     verdicts = [r["verdict"] for r in res.records]
     assert verdicts == ["pass", "error", "pass"]  # the third page ran on a fresh worker
-    assert "slow.pdf page 1: took longer than 1.5 s" in res.records[1]["error"]
+    assert "slow.pdf page 1: took longer than the page time limit of 1.5 s (--page-timeout)" in res.records[1]["error"]
 
 
 # -- all in one batch -----------------------------------------------------------------------------
@@ -257,3 +261,150 @@ def test_all_hostile_inputs_in_one_batch(tmp_path, templates):
     for r in res.records:
         if r["verdict"] == "error":
             assert Path(r["source"]).name in r["error"]
+
+
+# -- the hostile corpus (tests/hostile_corpus.py): one kind each ----------------------------------
+def error_of(path, templates, limits=ReadLimits()) -> str:
+    rec = only_error(path, templates, limits)
+    return rec["error"]
+
+
+def test_flate_bomb_in_a_content_stream(tmp_path, templates):
+    bomb = H.content_bomb(tmp_path / "bomb.pdf", mb=120)  # the size of the bomb that took minutes
+    assert error_of(bomb, templates) == "bomb.pdf page 1: content is over the limit of 8 MB decoded (--max-content-mb); not read"
+
+
+def test_forms_that_multiply_and_forms_that_loop(tmp_path, templates):
+    # 100 lines of 3 operations in a form drawn 100 times by a form the page draws 100 times:
+    # 3 million operations from 1.5 KB of file.
+    many = H.form_multiplier(tmp_path / "many.pdf", lines=100, uses=100, depth=2)
+    assert error_of(many, templates) == "many.pdf page 1: draws over the limit of 250,000 path operations (--max-drawing-ops); not read"
+    assert "form XObjects draw each other in a loop" in error_of(H.form_loop(tmp_path / "loop.pdf"), templates)
+
+
+def test_flate_bomb_in_an_image_stream_is_decoded_only_as_far_as_its_size(tmp_path, templates):
+    # 2000 x 2000 pixels stated; the stream would inflate to 100 MB. The page is read as a scan
+    # of 4 million pixels (a blank one), not 100 MB.
+    data = zlib.compress(b"\xff" * (100 << 20), 1)
+    (rec,) = records(H.image_pdf(tmp_path / "ibomb.pdf", 2000, 2000, data), templates)
+    assert rec["verdict"] == "unrecognised" and "blank page" in rec["findings"][0]["message"]
+
+
+@pytest.mark.parametrize("filter_", [b"/JBIG2Decode", b"/JPXDecode"], ids=["jbig2", "jpx"])
+def test_image_of_absurd_stated_size(tmp_path, templates, filter_):
+    p = H.absurd_image(tmp_path / "absurd.pdf", filter_)
+    assert error_of(p, templates) == ("absurd.pdf page 1: an image of 1000000 x 1000000 pixels is over the limit "
+                                      "of 300,000,000 pixels; not decoded")
+
+
+def test_hundred_thousand_empty_pages(tmp_path, templates):
+    recs = records(H.many_pages(tmp_path / "long.pdf"), templates, ReadLimits(max_pages=2))
+    assert [r["verdict"] for r in recs] == ["unrecognised", "unrecognised", "error"]
+    assert "long.pdf page 3: file has 100000 pages, more than 2" in recs[2]["error"]
+
+
+@pytest.mark.parametrize("maker", [H.page_tree_loop, H.xref_loop], ids=["page_tree_loop", "xref_loop"])
+def test_loops_in_a_pdf(tmp_path, templates, maker):
+    recs = records(maker(tmp_path / "loop.pdf"), templates)
+    assert recs and all(r["verdict"] == "error" and r["error"].startswith("loop.pdf") for r in recs)
+
+
+def test_png_with_huge_ztxt_chunk(tmp_path, templates):
+    assert "ztxt.png" in error_of(H.png_ztxt_bomb(tmp_path / "ztxt.png"), templates)
+
+
+def test_jpeg_with_truncated_scan(tmp_path, templates):
+    assert error_of(H.jpeg_truncated_scan(tmp_path / "cut.jpg"), templates).startswith("cut.jpg page 1: image data is damaged")
+
+
+def test_tiff_of_ten_thousand_tiny_frames(tmp_path, templates):
+    recs = records(H.tiff_many_frames(tmp_path / "frames.tif"), templates, ReadLimits(max_pages=3))
+    assert [r["error"] for r in recs] == [f"frames.tif page {n}: 8 x 8 pixels is too small to be a page" for n in (1, 2, 3)] + [
+        "frames.tif page 4: file has 10000 pages, more than 3; pages 4-10000 are not read (raise --max-pages)"]
+
+
+def test_one_by_hundred_thousand_strip(tmp_path, templates):
+    assert error_of(H.strip_image(tmp_path / "strip.png"), templates) == "strip.png page 1: 100000 x 1 pixels is too small to be a page"
+
+
+def test_tiff_with_wrong_strip_byte_counts(tmp_path, templates):
+    assert error_of(H.tiff_wrong_strip_counts(tmp_path / "strips.tif"), templates).startswith("strips.tif page 1: image data is damaged")
+
+
+def test_symlink_loop_and_pipe(tmp_path, templates):
+    assert error_of(H.symlink_loop(tmp_path / "loop.pdf"), templates) == \
+        "loop.pdf: a symbolic link that leads nowhere (a loop, or its target is missing)"
+    os.mkfifo(tmp_path / "pipe.pdf")  # opening it to read would wait for a writer forever
+    assert error_of(tmp_path / "pipe.pdf", templates) == "pipe.pdf: not a regular file (a pipe or a device?)"
+
+
+def without_file_override() -> list[str]:
+    """A command prefix under which even root obeys file permissions (no CAP_DAC_OVERRIDE)."""
+    if os.geteuid() != 0:
+        return []
+    if not shutil.which("setpriv"):
+        pytest.skip("running as root, and no setpriv to drop the capability that lets root read any file")
+    return ["setpriv", "--inh-caps=-all", "--bounding-set=-dac_override,-dac_read_search", "--"]
+
+
+def test_folder_with_a_permission_denied_file(tmp_path):
+    import subprocess
+    import sys
+
+    d = tmp_path / "in"
+    d.mkdir()
+    H.unreadable(d / "a_locked.pdf")
+    shutil.copy(EXACT, d / "b_good.pdf")
+    out = tmp_path / "out.jsonl"
+    root = Path(__file__).resolve().parents[1]
+    cmd = without_file_override() + [sys.executable, "-m", "layoutcheck.cli", "verify", str(root / "templates" / "KBH-101.json"),
+                                     str(d), "--json", str(out), "-q", "--page-timeout", "0", "--max-memory", "0"]
+    res = subprocess.run(cmd, cwd=root, capture_output=True, text=True, timeout=120, env=dict(os.environ, PYTHONPATH=str(root)))
+    assert res.returncode == 1, res.stderr
+    recs = [json.loads(x) for x in out.read_text().splitlines()]
+    assert [(Path(r["source"]).name, r["verdict"]) for r in recs] == [("a_locked.pdf", "error"), ("b_good.pdf", "pass")]
+    assert recs[0]["page"] is None and recs[0]["error"] == "a_locked.pdf: cannot be opened (Permission denied)"
+
+
+def test_file_that_grows_while_it_is_read(tmp_path, templates):
+    import threading
+
+    p = tmp_path / "growing.pdf"
+    shutil.copy(EXACT, p)
+    stop = threading.Event()
+
+    def grow():
+        with open(p, "ab") as fh:
+            while not stop.is_set():
+                fh.write(b"%% more bytes arriving\n" * 2000)
+                fh.flush()
+                time.sleep(0.005)
+
+    t = threading.Thread(target=grow)
+    t.start()
+    try:
+        recs = records(p, templates)
+    finally:
+        stop.set()
+        t.join()
+    # Bytes appended after the end of the file change nothing a reader uses (ISO 32000-1, 7.5.5:
+    # readers look for the last startxref near the end, then follow it).
+    assert [r["verdict"] for r in recs] == ["pass"] or all(r["verdict"] == "error" and "growing.pdf" in r["error"] for r in recs)
+
+
+def test_names_with_a_newline_and_bytes_that_are_not_utf8(tmp_path, templates):
+    d = tmp_path / "in"
+    d.mkdir()
+    odd = [H.odd_name(d, b"line\nbreak.pdf"), H.odd_name(d, b"caf\xe9.pdf")]
+    (d / "z\nbad.pdf").write_bytes(b"not a pdf")
+    out = tmp_path / "out.jsonl"
+    here = dict(page_timeout=None, memory_mb=None)  # in this process: what matters is the writing
+    res = run_batch(sorted(str(p) for p in d.iterdir()), templates, output=str(out),
+                    options=BatchOptions(keep_records=True, **here))
+    assert [r["verdict"] for r in res.records] == ["pass", "pass", "error"]
+    assert res.records[2]["error"] == "z\\nbad.pdf: not a PDF (no %PDF header)"
+    back = [json.loads(x) for x in out.read_bytes().splitlines()]  # every line is valid JSON
+    assert [r["source"] for r in back] == [str(p) for p in sorted(odd)] + [str(d / "z\nbad.pdf")]
+    # A resumed run finds every page done: the names read back equal the names given.
+    again = run_batch(sorted(str(p) for p in d.iterdir()), templates, output=str(out), options=BatchOptions(resume=True, **here))
+    assert again.skipped == 3 and again.written == 0

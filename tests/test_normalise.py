@@ -121,6 +121,14 @@ def test_bitonal_stays_bitonal_and_files_state_dpi(tmp_path):
         write_image(grey, tmp_path / "g.bmp", "bmp")
 
 
+def path_key(path) -> str:
+    """First 8 hex digits of the SHA-256 (hashlib) of a file's absolute path: the name key."""
+    import hashlib
+    import os
+
+    return hashlib.sha256(os.path.abspath(str(path)).encode()).hexdigest()[:8]
+
+
 SCANS = [
     dict(dpi=300, rotation_deg=2.5, scale=(0.97, 0.97), shift_mm=(4.0, -3.0), noise_sigma=4.0, blur_sigma_px=0.6),
     dict(dpi=200, rotation_deg=-1.2, shift_mm=(-3.0, 2.0), bitonal_threshold=150, noise_sigma=3.0),
@@ -142,7 +150,7 @@ def test_reverified_normalised_scan_has_no_pose_left(t101, scan_settings, tmp_pa
     assert rec["template"] == "KBH-101" and rec["pose"] is not None
     tp = t101.pages[0]
     out = normalise_page(page, Pose(np.array(rec["pose"]["matrix"])), (tp.width, tp.height), tmp_path / "norm")
-    assert out["path"] == str(tmp_path / "norm" / "scan_p1.png") and out["dpi"] == scan.dpi
+    assert out["path"] == str(tmp_path / "norm" / f"scan-{path_key(tmp_path / 'scan.png')}_p1.png") and out["dpi"] == scan.dpi
     page = next(read_pages(out["path"]))
     assert page.dpi == scan.dpi and page.bitonal == scan.bitonal
     # ISO 216 A4 is 2480 x 3508 px at 300 dpi and 1654 x 2339 px at 200 dpi (common practice).
@@ -204,7 +212,7 @@ def test_cli_verify_zones_and_normalise(tmp_path):
     assert res.exit_code == 1, res.output  # shifted is not a pass
     rec = json.loads((tmp_path / "r.jsonl").read_text().splitlines()[0])
     assert [z["name"] for z in rec["zones"]][:2] == ["vessel_name", "call_sign"]
-    assert rec["normalised"] == {"path": str(tmp_path / "n" / "101_shifted_p1.tiff"), "dpi": 72.0}
+    assert rec["normalised"] == {"path": str(tmp_path / "n" / f"101_shifted-{path_key(INPUTS / '101_shifted.pdf')}_p1.tiff"), "dpi": 72.0}
     with Image.open(rec["normalised"]["path"]) as im:
         assert im.size == (595, 842)  # A4 at 72 dpi: 595.3 x 841.9 points (ISO 216, ISO 32000-1)
     res = CliRunner().invoke(main, ["verify", str(tpath), str(INPUTS / "101_shifted.pdf"), "--normalise-dpi", "10"])

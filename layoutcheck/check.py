@@ -16,7 +16,8 @@ import numpy as np
 
 from .consensus import Match, SolverSettings, solve
 from .elements import MM_PER_POINT, PageElements
-from .sources import PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page, where
+from .sources import (PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page,
+                      square_pixels, where)
 from .template import Template, TemplatePage, template_page, with_raster_sections
 from .verdict import Finding, Tolerances, judge, offending
 
@@ -300,7 +301,8 @@ def look_again(page: RasterPage, found: PageElements, tp: TemplatePage, match: M
     if not wanted:
         return found, match
     expected = [e for e in tp.elements_for(found.source) if e.id in wanted]
-    looked = [e for e in second_look(page.image, page.dpi, expected, match.pose) if e is not None]
+    square = square_pixels(page)
+    looked = [e for e in second_look(square.image, square.dpi, expected, match.pose) if e is not None]
     near = 0.5 / MM_PER_POINT
     new = []
     for e in looked:
@@ -331,7 +333,8 @@ def handoff(rec: dict, page, found: PageElements, tp: TemplatePage, match: Match
         if not recognised:
             rec["zones"] = []
         elif isinstance(page, RasterPage):
-            rec["zones"] = zones_for_match(tp, match, page.dpi, (page.image.shape[1], page.image.shape[0]))
+            # On the input's own pixel grid, per axis (a fax's pixels are twice as tall as wide).
+            rec["zones"] = zones_for_match(tp, match, page.dpi_xy, (page.image.shape[1], page.image.shape[0]))
         else:
             rec["zones"] = zones_for_match(tp, match, None, (found.width, found.height))
     if settings.normalise_dir:

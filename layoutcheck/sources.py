@@ -29,8 +29,10 @@ IMAGE_EXTENSIONS = {".png", ".jpg", ".jpeg", ".tif", ".tiff"}
 PDF_EXTENSIONS = {".pdf"}
 KNOWN_EXTENSIONS = IMAGE_EXTENSIONS | PDF_EXTENSIONS
 
-#: Resolutions scanners are set to (common practice); a measured dpi within 2 % snaps to one.
-USUAL_DPI = (72, 75, 96, 100, 120, 150, 200, 240, 250, 300, 400, 500, 600, 800, 1200)
+#: Resolutions scanners and fax machines are set to, per axis (common practice; fax: 204 x 98
+#: "standard", 204 x 196 "fine", and the metric 200 x 100 / 200 x 200); a stated dpi within 2 %
+#: snaps to the nearest one.
+USUAL_DPI = (72, 75, 96, 98, 100, 120, 150, 196, 200, 204, 240, 250, 300, 400, 500, 600, 800, 1200)
 
 
 @dataclass(frozen=True)
@@ -65,25 +67,72 @@ class VectorPage:
 
 @dataclass
 class RasterPage:
-    """A scanned page: grey image (0 black .. 255 white) and its resolution."""
+    """A scanned page: grey image (0 black .. 255 white) and its resolution per axis.
+
+    ``dpi_x`` is the resolution across (along a pixel row), ``dpi_y`` down; ``dpi_y`` None means
+    square pixels. The image stays on the input's own pixel grid (zones and normalised pages are
+    given on it); :func:`square_pixels` makes the square-pixel copy the extractor reads.
+    """
 
     source: str
     page: int
     image: np.ndarray = field(repr=False)
-    dpi: float
+    dpi_x: float
     bitonal: bool = False
+    dpi_y: float | None = None
 
     kind = "raster"
+
+    def __post_init__(self) -> None:
+        if self.dpi_y is None:
+            self.dpi_y = self.dpi_x
+
+    @property
+    def square(self) -> bool:
+        """Whether the pixels are square (the same resolution on both axes)."""
+        return self.dpi_x == self.dpi_y
+
+    @property
+    def dpi(self) -> float:
+        """One resolution for the page: the finer axis' (that of :func:`square_pixels`' image)."""
+        return float(max(self.dpi_x, self.dpi_y))
+
+    @property
+    def dpi_xy(self) -> tuple[float, float]:
+        """``(dpi_x, dpi_y)``."""
+        return float(self.dpi_x), float(self.dpi_y)
 
     @property
     def width(self) -> float:
         """Width in points."""
-        return self.image.shape[1] * POINTS_PER_INCH / self.dpi
+        return self.image.shape[1] * POINTS_PER_INCH / self.dpi_x
 
     @property
     def height(self) -> float:
         """Height in points."""
-        return self.image.shape[0] * POINTS_PER_INCH / self.dpi
+        return self.image.shape[0] * POINTS_PER_INCH / self.dpi_y
+
+
+def square_pixels(page: RasterPage) -> RasterPage:
+    """The page resampled to square pixels at its finer resolution (itself when already square).
+
+    A fax at 204 x 98 dpi becomes 204 x 204 dpi: each row is stretched down by area-aware
+    interpolation (OpenCV ``INTER_LINEAR`` when enlarging, ``INTER_AREA`` when reducing), so
+    the page's size in points is kept to a fraction of a pixel. A bitonal page stays bitonal
+    (thresholded at mid-grey after resampling).
+    """
+    import cv2
+
+    if page.square:
+        return page
+    dpi = page.dpi
+    h, w = page.image.shape[:2]
+    size = (max(1, int(round(w * dpi / page.dpi_x))), max(1, int(round(h * dpi / page.dpi_y))))
+    interp = cv2.INTER_LINEAR if size[0] * size[1] >= w * h else cv2.INTER_AREA
+    image = cv2.resize(page.image, size, interpolation=interp)
+    if page.bitonal:
+        image = np.where(image >= 128, 255, 0).astype(np.uint8)
+    return RasterPage(page.source, page.page, image, dpi, page.bitonal)
 
 
 @dataclass
@@ -111,12 +160,13 @@ def where(source: str, page: int | None) -> str:
 
 
 def snap_dpi(dpi: float | None) -> float | None:
-    """Round a stated resolution to the usual value within 2 %; None when absent or below 72."""
+    """Round a stated resolution to the nearest usual value within 2 %; None when absent or
+    below 72. Each axis is snapped on its own (a fax's 98 dpi stays 98, not 100)."""
     if dpi is None or not np.isfinite(dpi) or dpi < 72:
         return None
-    for usual in USUAL_DPI:
-        if abs(dpi - usual) <= 0.02 * usual:
-            return float(usual)
+    usual = min(USUAL_DPI, key=lambda u: abs(dpi - u))
+    if abs(dpi - usual) <= 0.02 * usual:
+        return float(usual)
     return float(round(dpi))
 
 
@@ -267,16 +317,11 @@ def _image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
         return PageError(source, n, f"{where(source, n)}: {w} x {h} pixels is over the limit of {limits.max_pixels:,} pixels; not decoded")
     if w < 16 or h < 16:
         return PageError(source, n, f"{where(source, n)}: {w} x {h} pixels is too small to be a page")
-    info_dpi = frame.info.get("dpi")
-    dpi = None
-    if info_dpi:
-        try:
-            dpi = snap_dpi(float(info_dpi[0]))
-        except (TypeError, ValueError, IndexError):
-            dpi = None
-    if dpi is None:
-        dpi = limits.dpi
-    if dpi is None:
+    stated = stated_dpi(frame)
+    dpi_x, dpi_y = (snap_dpi(v) for v in stated) if stated else (None, None)
+    if dpi_x is None or dpi_y is None:
+        dpi_x = dpi_y = limits.dpi
+    if dpi_x is None:
         return PageError(source, n, f"{where(source, n)}: resolution unknown (the file states no dpi, or one below 72); give --dpi N")
     try:
         # A frame of a multi-page file is copied as it is read (seeking on reuses the buffer):
@@ -301,7 +346,38 @@ def _image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
         arr = np.asarray(im, dtype=np.uint8)
     except Exception as exc:
         return PageError(source, n, f"{where(source, n)}: image data is damaged ({_one_line(exc)})")
-    return RasterPage(source, n, arr, float(dpi), bitonal)
+    if _exif_orientation(frame) in (5, 6, 7, 8):
+        dpi_x, dpi_y = dpi_y, dpi_x  # the image was turned a quarter: its rows were its columns
+    return RasterPage(source, n, arr, float(dpi_x), bitonal, float(dpi_y))
+
+
+def stated_dpi(frame) -> tuple[float, float] | None:
+    """``(x, y)`` resolution an image file states, in dpi, or None.
+
+    Pillow gives both axes for TIFF (XResolution, YResolution, ResolutionUnit), PNG (pHYs) and
+    JPEG's JFIF header; for a JPEG whose JFIF header states only an aspect ratio, Pillow reads
+    the EXIF resolution of the x axis alone, so both EXIF tags (0x011A, 0x011B, unit 0x0128:
+    2 inch, 3 cm) are read here.
+    """
+    info = frame.info
+    exif_first = getattr(frame, "format", None) == "JPEG" and info.get("jfif_unit", 0) not in (1, 2)
+    if exif_first:
+        try:
+            tags = frame.getexif()
+            xr, yr = tags.get(0x011A), tags.get(0x011B)
+            if xr and yr:
+                k = 2.54 if tags.get(0x0128, 2) == 3 else 1.0
+                return float(xr) * k, float(yr) * k
+        except Exception:
+            pass
+        if "exif" in info:
+            return None  # Pillow's value would be its 72 dpi stand-in or one axis only
+    d = info.get("dpi")
+    try:
+        x, y = float(d[0]), float(d[1])
+    except (TypeError, ValueError, IndexError):
+        return None
+    return (x, y) if x > 0 and y > 0 else None
 
 
 def _exif_orientation(frame) -> int | None:
@@ -472,8 +548,10 @@ def _image_dpi(pl, page_width: float) -> float:
     # On a page turned by /Rotate the image's pixel rows may run along the page's other side.
     if rot in (90, 270):
         w_in, h_in = h_in, w_in
-    dpi = max(px_w / w_in if w_in else 0, px_h / h_in if h_in else 0)
-    return snap_dpi(dpi) or 200.0
+    # Each axis is snapped on its own (an image of a 204 x 98 dpi fax wrapped in a PDF); the page
+    # is rendered, with square pixels, at the finer of the two, so no detail is lost.
+    per_axis = [snap_dpi(px_w / w_in) if w_in else None, snap_dpi(px_h / h_in) if h_in else None]
+    return max((d for d in per_axis if d), default=200.0)
 
 
 def render_pdf_page(source: str, n: int, limits: ReadLimits, dpi: float, oversample: int = 1) -> Page:
@@ -557,4 +635,4 @@ def render_page_image(source: str, page: int, dpi: float, limits: ReadLimits = R
         out = next((pg for pg in read_pages(source, limits, {page})), PageError(source, page, f"{where(source, page)}: no such page"))
     if isinstance(out, PageError):
         raise InputError(out.message)
-    return out.image
+    return square_pixels(out).image

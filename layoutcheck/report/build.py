@@ -209,7 +209,7 @@ def page_picture(path: str, page: int, dpi: float) -> tuple[np.ndarray, float, s
     A scan (image file or a PDF that wraps one) is downscaled from its own resolution; a
     born-digital PDF page is rendered at ``dpi``.
     """
-    from ..sources import InputError, PageError, RasterPage, ReadLimits, read_pages, render_page_image
+    from ..sources import InputError, PageError, RasterPage, ReadLimits, read_pages, render_page_image, square_pixels
 
     kind = None
     image = None
@@ -220,6 +220,7 @@ def page_picture(path: str, page: int, dpi: float) -> tuple[np.ndarray, float, s
             if isinstance(pg, PageError):
                 raise InputError(pg.message)
             if isinstance(pg, RasterPage):
+                pg = square_pixels(pg)  # a fax's tall pixels shown square
                 kind, image, native = "raster", pg.image, float(pg.dpi)
             else:
                 kind = "vector"

@@ -16,8 +16,8 @@ import numpy as np
 
 from .consensus import Match, SolverSettings, solve
 from .elements import MM_PER_POINT, PageElements
-from .sources import (PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page,
-                      square_pixels, where)
+from .sources import (FAINT_CONTRAST, PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, page_contrast,
+                      read_pages, render_pdf_page, square_pixels, where)
 from .template import Template, TemplatePage, template_page, with_raster_sections
 from .verdict import Finding, Tolerances, judge, offending
 
@@ -229,7 +229,8 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
         return error_record(page.source, page.page, page.message)
     # A page that was read but cannot hold a form (blank, black) is "unrecognised", not "error":
     # errors are for input that could not be read at all.
-    problem = page_content_problem(page.image) if isinstance(page, RasterPage) else None
+    contrast = page_contrast(page.image) if isinstance(page, RasterPage) and page.image.size else None
+    problem = page_content_problem(page.image, contrast) if isinstance(page, RasterPage) else None
     if problem:
         return unrecognised_record(page.source, page.page, f"Not a form: {problem}", t0)
     try:
@@ -239,7 +240,13 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
         return error_record(page.source, page.page, msg, (time.perf_counter() - t0) * 1000)
     if not found.elements:
         return unrecognised_record(page.source, page.page, "Not a form: no lines, boxes or text found on the page (blank page?)", t0)
-    return record_for(page.source, page.page, found, templates, settings, t0, page=page)
+    rec = record_for(page.source, page.page, found, templates, settings, t0, page=page)
+    if contrast is not None and contrast.contrast < FAINT_CONTRAST and rec["template"] is not None:
+        # Verified, but staff should know why OCR may struggle on this page.
+        rec["findings"].append(Finding("pass", f"Faint print: the ink is only {contrast.contrast:.0f} grey levels darker "
+                                       f"than the paper (clear print: over {FAINT_CONTRAST:.0f}); OCR may misread it",
+                                       value=contrast.contrast, limit=FAINT_CONTRAST).to_dict())
+    return rec
 
 
 def record_for(source: str, page_no: int, found: PageElements, templates: Sequence[Template],

@@ -605,23 +605,70 @@ def _render_page(doc, source: str, n: int, limits: ReadLimits, dpi: float) -> Pa
                 page.close()
 
 
-def page_content_problem(image: np.ndarray) -> str | None:
+#: Ink less than this many grey levels darker than the paper is faint print (a copy of a copy,
+#: dropout colours): still read, but said in a finding. Measured in bench/bench_intake.py: black
+#: print scanned, blurred and JPEG-compressed keeps over 150 levels; faded print about 90.
+FAINT_CONTRAST = 110.0
+#: Least darkness, in grey levels below the paper, that can be ink (whatever the noise).
+MIN_INK_CONTRAST = 20.0
+
+
+@dataclass(frozen=True)
+class PageContrast:
+    """How a grey page's ink stands out from its paper (grey levels, 0 black .. 255 white)."""
+
+    #: Grey of the paper (the median pixel: a form inks a few percent of the sheet).
+    paper: float
+    #: Grey of the ink's dark core (10th percentile of the pixels counted as ink).
+    ink: float
+    #: Spread of the paper's grey (1.4826 x its median absolute deviation: a Gaussian's sigma).
+    noise: float
+    #: Share of the sheet darker than the paper by more than ``max(20, 5 x noise)`` levels.
+    ink_share: float
+    #: Share of the sheet below mid-grey (128).
+    dark_share: float
+
+    @property
+    def contrast(self) -> float:
+        """Paper minus ink, grey levels."""
+        return self.paper - self.ink
+
+
+def page_contrast(image: np.ndarray) -> PageContrast:
+    """The contrast structure of a grey page, from an even sample of about 250,000 pixels.
+
+    Ink is what is darker than the paper by more than the paper's own noise can explain (five
+    sigmas, at least :data:`MIN_INK_CONTRAST` levels), whatever the absolute grey: faded print
+    and light dropout colours count as ink, a blank sheet with noise does not.
+    """
+    step = max(1, int(np.sqrt(image.size / 250_000)))
+    sample = image[::step, ::step].astype(np.float32).ravel()
+    paper = float(np.median(sample))
+    noise = 1.4826 * float(np.median(np.abs(sample - paper)))
+    ink_mask = sample < paper - max(MIN_INK_CONTRAST, 5.0 * noise)
+    ink_share = float(ink_mask.mean())
+    ink = float(np.percentile(sample[ink_mask], 10)) if ink_mask.any() else paper
+    return PageContrast(paper, ink, noise, ink_share, float((sample < 128).mean()))
+
+
+def page_content_problem(image: np.ndarray, contrast: PageContrast | None = None) -> str | None:
     """Why a grey page image cannot hold a form, or None: blank paper or solid black.
 
-    Dark means below mid-grey (128). A printed form inks a few percent of the sheet (common
-    practice: office forms run at 2-15 % coverage); under 0.05 % is a blank sheet with specks,
-    over 85 % is a black page (a scan with the lid open, or an inverted image).
+    Blank is judged from the page's contrast (:func:`page_contrast`), not from a fixed grey: a
+    printed form inks a few percent of the sheet (common practice: office forms run at 2-15 %
+    coverage), so a sheet with ink over under 0.05 % of it is blank paper with specks, however
+    light or dark its print. Over 85 % below mid-grey is a black page (a scan with the lid open,
+    or an inverted image).
     """
     if image.size == 0:
         return "page image is empty"
-    step = max(1, int(np.sqrt(image.size / 250_000)))  # an even sample of about 250,000 pixels
-    dark = float((image[::step, ::step] < 128).mean())
-    if dark < 0.0005:
-        return f"blank page ({dark:.2%} of the sheet is dark); no form on it"
-    if dark > 0.85:
-        return f"page is almost all black ({dark:.0%} of the sheet is dark); no form can be seen"
+    c = page_contrast(image) if contrast is None else contrast
+    if c.dark_share > 0.85:
+        return f"page is almost all black ({c.dark_share:.0%} of the sheet is dark); no form can be seen"
+    if c.ink_share < 0.0005:
+        return (f"blank page ({c.ink_share:.2%} of the sheet is darker than the paper by more than "
+                f"{max(MIN_INK_CONTRAST, 5.0 * c.noise):.0f} grey levels); no form on it")
     return None
-
 
 
 def render_page_image(source: str, page: int, dpi: float, limits: ReadLimits = ReadLimits()) -> np.ndarray:

@@ -260,7 +260,7 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         return rec
     if isinstance(page, RasterPage) and match.pose is not None:
         found, match = look_again(page, found, tp, match, settings)
-    verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size)
+    verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size, zones=tp.zones)
     recognised = verdict != "unrecognised"
     rec = {
         "source": source,

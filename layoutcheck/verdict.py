@@ -11,7 +11,7 @@ from .consensus import Match
 
 
 #: Most severe first; a page's verdict is the most severe of its findings.
-VERDICTS = ("error", "unrecognised", "mismatched", "rescaled", "skewed", "shifted", "pass")
+VERDICTS = ("error", "unrecognised", "mismatched", "incomplete", "rescaled", "skewed", "shifted", "pass")
 SEVERITY = {v: i for i, v in enumerate(VERDICTS)}
 
 
@@ -36,6 +36,10 @@ class Tolerances:
     element_tolerance_mm: float = 2.0
     #: Relative size change of an element still accepted (common practice).
     element_size_pct: float = 10.0
+    #: Millimetres of the form that may lie beyond an edge of the image before the page is
+    #: "incomplete" (common practice: as much as an element may sit from its place; beyond it a
+    #: box loses its side and a field's text may be cut).
+    max_cut_mm: float = 2.0
     #: Share of judged template elements that must agree for the page to be this form. Chosen
     #: so a filled form (every element there) passes with room and a different form of the same
     #: house style (shared rules and margins) does not; see docs/benchmarks.md.
@@ -103,9 +107,91 @@ def rotation_words(rotation_deg: float) -> str:
     return f"turned {abs(rotation_deg):.2f}° {side}"
 
 
+EDGES = ("top", "bottom", "left", "right")
+
+
+@dataclass(frozen=True)
+class CutOff:
+    """What of the form lies outside the captured image, under the page's pose."""
+
+    #: Edge -> millimetres of the form beyond it (only the edges it crosses).
+    beyond_mm: dict
+    #: Share of the form's area (the box around its elements) that is not on the image.
+    share: float
+    #: Names of the sections and zones not wholly on the image.
+    sections: tuple[str, ...]
+    zones: tuple[str, ...]
+
+    @property
+    def worst_mm(self) -> float:
+        return max(self.beyond_mm.values(), default=0.0)
+
+
+def _beyond(frames: np.ndarray, pose, input_size: tuple[float, float]) -> np.ndarray:
+    """(N, 4) points of each frame beyond the image's top, bottom, left and right edges."""
+    x0, t, x1, b = (frames[:, k] for k in range(4))
+    corners = np.stack([np.stack([x0, t], 1), np.stack([x1, t], 1), np.stack([x1, b], 1), np.stack([x0, b], 1)], 1)
+    mapped = pose.apply(corners.reshape(-1, 2)).reshape(-1, 4, 2)
+    w, h = input_size
+    return np.stack([-mapped[..., 1].min(1), mapped[..., 1].max(1) - h,
+                     -mapped[..., 0].min(1), mapped[..., 0].max(1) - w], 1).clip(min=0.0)
+
+
+def cut_off(match: Match, input_size: tuple[float, float], tolerances: Tolerances, zones=()) -> CutOff | None:
+    """What of the form is outside the image (a feeder cut the page), or None when it is all there.
+
+    The template's elements are mapped by the pose (through :meth:`Pose.apply` only, so any kind
+    of pose serves); the form is incomplete when some element lies more than
+    ``tolerances.max_cut_mm`` beyond an edge. The share missing is measured on a 64 x 64 grid over
+    the box around the form's elements.
+    """
+    if match.pose is None or not match.elements:
+        return None
+    from .elements import MM_PER_POINT
+
+    frames = np.array([e.frame for e in match.elements], float)
+    beyond = _beyond(frames, match.pose, input_size) * MM_PER_POINT
+    worst = beyond.max(0)
+    if worst.max() <= tolerances.max_cut_mm:
+        return None
+    lo, hi = frames[:, :2].min(0), frames[:, 2:].max(0)
+    gx, gy = np.meshgrid(np.linspace(lo[0], hi[0], 64), np.linspace(lo[1], hi[1], 64))
+    pts = match.pose.apply(np.stack([gx.ravel(), gy.ravel()], 1))
+    w, h = input_size
+    share = float(((pts[:, 0] < 0) | (pts[:, 0] > w) | (pts[:, 1] < 0) | (pts[:, 1] > h)).mean())
+
+    def outside(items) -> tuple[str, ...]:
+        items = list(items)
+        if not items:
+            return ()
+        far = _beyond(np.array([i.frame for i in items], float), match.pose, input_size).max(1) * MM_PER_POINT
+        return tuple(i.name for i, d in zip(items, far) if d > tolerances.max_cut_mm)
+
+    return CutOff({e: float(v) for e, v in zip(EDGES, worst) if v > tolerances.max_cut_mm}, share,
+                  outside(match.sections), outside(zones))
+
+
+def cut_off_words(cut: CutOff) -> str:
+    """'Part of the form is not on the image: ...' for a :class:`CutOff`."""
+    edges = sorted(cut.beyond_mm.items(), key=lambda kv: -kv[1])
+    where_ = " and ".join(f"{mm:.1f} mm beyond the {edge} edge" for edge, mm in edges)
+    parts = [f"Part of the form is not on the image (cut off?): {cut.share:.0%} of it is missing, {where_}"]
+    if cut.sections:
+        parts.append("sections outside: " + ", ".join(f"'{n}'" for n in cut.sections))
+    if cut.zones:
+        shown = ", ".join(f"'{n}'" for n in cut.zones[:12])
+        more = f" and {len(cut.zones) - 12} more" if len(cut.zones) > 12 else ""
+        parts.append(f"zones outside: {shown}{more}")
+    return "; ".join(parts)
+
+
 def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, float],
-          input_size: tuple[float, float]) -> tuple[str, list[Finding]]:
-    """Verdict and findings of a matched page, most severe finding first."""
+          input_size: tuple[float, float], zones=()) -> tuple[str, list[Finding]]:
+    """Verdict and findings of a matched page, most severe finding first.
+
+    ``zones`` (the template page's, each with ``name`` and ``frame``) are named when the page is
+    incomplete.
+    """
     findings: list[Finding] = []
     if match.pose is None or match.support < tolerances.min_support:
         why = match.reason or (f"only {match.support:.0%} of the template's elements agree on one placement "
@@ -145,9 +231,15 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
     if abs(rot) > tolerances.max_skew_deg:
         findings.append(Finding("skewed", f"Content {rotation_words(rot)} (limit {tolerances.max_skew_deg:g}°)",
                                 value=rot, limit=tolerances.max_skew_deg))
+    cut = cut_off(match, input_size, tolerances, zones)
+    if cut is not None:
+        findings.append(Finding("incomplete", cut_off_words(cut), element=",".join(cut.beyond_mm),
+                                value=cut.worst_mm, limit=tolerances.max_cut_mm))
     shift = pose.shift_mm(template_size, input_size)
     dist = float(np.hypot(*shift))
-    if dist > tolerances.max_shift_mm:
+    # On a cut-off page the content is off centre because the image is short, not because the
+    # page was placed askew: the shift is not judged.
+    if dist > tolerances.max_shift_mm and cut is None:
         findings.append(Finding("shifted", f"Content sits {direction_words(*shift)} off centre on the sheet "
                                 f"(limit {tolerances.max_shift_mm:g} mm)", value=dist, limit=tolerances.max_shift_mm))
     findings.sort(key=lambda f: SEVERITY[f.verdict])

@@ -39,6 +39,7 @@ VERDICT_TITLES = {
     "error": "Could not be checked",
     "unrecognised": "Not recognised as a known form",
     "mismatched": "Layout differs from the form",
+    "incomplete": "Part of the form is not on the image",
     "rescaled": "Printed at the wrong size",
     "skewed": "Turned on the sheet",
     "shifted": "Moved on the sheet",
@@ -52,6 +53,8 @@ VERDICT_ADVICE = {
                     "old version no template was learned for.",
     "mismatched": "Compare the marked elements with the form. If this version of the form is "
                   "valid, learn a template for it; otherwise send the page back.",
+    "incomplete": "Scan the page again whole: part of it (named below) was cut off, and OCR cannot "
+                  "read the fields there.",
     "rescaled": "The page was printed or scanned at another size. Reprint at 100 % (no fitting "
                 "to the paper) or rescale before OCR.",
     "skewed": "Deskew the page before OCR, or scan it again laid straight.",

@@ -271,6 +271,8 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         "findings": [f.to_dict() for f in findings],
         "pose": pose_record(match, tp, input_size) if recognised else None,
         "support": round(match.support, 4),
+        # Largest displacement of the smooth residual field (paper not flat), mm.
+        "warp_mm": round(match.field.largest_mm, 2) if recognised and match.field is not None else None,
         "offending": offending(match) if recognised else [],
         "sections": [
             {"id": s.id, "name": s.name, "status": s.status, "offset_mm": [round(v, 2) for v in s.offset_mm],

@@ -40,6 +40,10 @@ class Tolerances:
     #: "incomplete" (common practice: as much as an element may sit from its place; beyond it a
     #: box loses its side and a field's text may be cut).
     max_cut_mm: float = 2.0
+    #: Millimetres the content may bend away from one flat pose (paper not flat on the glass,
+    #: a curled sheet) before the bend is a finding of its own; each element is judged against
+    #: the bend either way (common practice: as much as an element may sit from its place).
+    max_warp_mm: float = 2.0
     #: Share of judged template elements that must agree for the page to be this form. Chosen
     #: so a filled form (every element there) passes with room and a different form of the same
     #: house style (shared rules and margins) does not; see docs/benchmarks.md.
@@ -231,6 +235,11 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
     if abs(rot) > tolerances.max_skew_deg:
         findings.append(Finding("skewed", f"Content {rotation_words(rot)} (limit {tolerances.max_skew_deg:g}°)",
                                 value=rot, limit=tolerances.max_skew_deg))
+    warp = match.field.largest_mm if match.field is not None else 0.0
+    if warp > tolerances.max_warp_mm:
+        findings.append(Finding("shifted", f"Paper not flat: parts of the content bend up to {warp:.1f} mm away from "
+                                f"one flat placement (limit {tolerances.max_warp_mm:g} mm); each element was judged "
+                                "against the bend", value=warp, limit=tolerances.max_warp_mm))
     cut = cut_off(match, input_size, tolerances, zones)
     if cut is not None:
         findings.append(Finding("incomplete", cut_off_words(cut), element=",".join(cut.beyond_mm),

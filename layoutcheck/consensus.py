@@ -901,7 +901,7 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     rules = np.flatnonzero((final >= 0) & np.isin([e.kind for e in tmpl_els], RULE_KINDS))
     if len(rules):
         across, span_ratio = judge_rules(tmpl, inp, rules, final[rules], inv, shift_t[rules] + bend[rules],
-                                         free_rule_ends(tmpl_els, rules, settings.rule_meet), size_tol)
+                                         free_rule_ends(tmpl_els, rules, settings.rule_meet), size_tol, position_tol)
         offsets[rules] = across + shift_t[rules] + bend[rules]
         ratios[rules] = span_ratio
     # --
@@ -972,16 +972,47 @@ def free_rule_ends(tmpl_els, rules: np.ndarray, meet: float) -> np.ndarray:
     return out
 
 
+def _rule_ends(fa: FrameArrays, idx: np.ndarray, inv: Pose) -> tuple[np.ndarray, np.ndarray]:
+    """Both ends of found rules ``idx``, taken back through the pose: two (M, 2) arrays."""
+    c, sz = fa.centers[idx], fa.sizes[idx]
+    ang = np.radians(np.nan_to_num(fa.angles[idx]))
+    ax = np.argmax(sz, axis=1)
+    direction = np.where((ax == 0)[:, None], np.column_stack([np.cos(ang), np.sin(ang)]),
+                         np.column_stack([-np.sin(ang), np.cos(ang)]))
+    half = sz[np.arange(len(idx)), ax] / 2
+    return inv.apply(c - half[:, None] * direction), inv.apply(c + half[:, None] * direction)
+
+
+def _covered_share(intervals: np.ndarray, half: float) -> float:
+    """Share of ``[-half, half]`` covered by the union of (K, 2) intervals."""
+    iv = np.clip(intervals, -half, half)
+    iv = iv[iv[:, 1] > iv[:, 0]]
+    if not len(iv):
+        return 0.0
+    iv = iv[np.argsort(iv[:, 0])]
+    total, lo, hi = 0.0, iv[0, 0], iv[0, 1]
+    for a, b in iv[1:]:
+        if a > hi:
+            total += hi - lo
+            lo, hi = a, b
+        else:
+            hi = max(hi, b)
+    return float((total + hi - lo) / (2 * half))
+
+
 def judge_rules(tmpl: FrameArrays, inp: FrameArrays, rules: np.ndarray, partners: np.ndarray, inv: Pose,
-                expected_offset: np.ndarray, free: np.ndarray, size_tol: float) -> tuple[np.ndarray, np.ndarray]:
+                expected_offset: np.ndarray, free: np.ndarray, size_tol: float,
+                near: float = 5.67) -> tuple[np.ndarray, np.ndarray]:
     """How matched rules sit, judged as rules.
 
     Each found rule's two ends are taken back through the pose (``inv``) and the expected
     offset (section shift and residual field) is removed. Across the rule, its offset is the
     larger of the found line's distances from the expected line at the expected rule's two
     ends (so a turned rule counts at its worst end). Along it, nothing is measured from where
-    its ends are; only its span: the share of the expected span it covers, and how far it runs
-    past a *free* end (one where no other element of the template meets it, see
+    its ends are; only its span: the share of the expected span covered by the found rules
+    lying on its line (within ``near`` points across, parallel: a rule broken in pieces by a
+    bend of the paper or by a stamp still covers its span), and how far its partner runs past
+    a *free* end (one where no other element of the template meets it, see
     :func:`free_rule_ends`).
 
     Returns
@@ -995,13 +1026,7 @@ def judge_rules(tmpl: FrameArrays, inp: FrameArrays, rules: np.ndarray, partners
     t_c, t_s = tmpl.centers[rules], tmpl.sizes[rules]
     ax = np.argmax(t_s, axis=1)
     half = t_s[np.arange(len(rules)), ax] / 2
-    f_c, f_s = inp.centers[partners], inp.sizes[partners]
-    ang = np.radians(np.nan_to_num(inp.angles[partners]))
-    f_ax = np.argmax(f_s, axis=1)
-    direction = np.where((f_ax == 0)[:, None], np.column_stack([np.cos(ang), np.sin(ang)]),
-                         np.column_stack([-np.sin(ang), np.cos(ang)]))
-    f_half = f_s[np.arange(len(rules)), f_ax] / 2
-    ends = [inv.apply(f_c + sgn * f_half[:, None] * direction) - expected_offset for sgn in (-1.0, 1.0)]
+    ends = [e - expected_offset for e in _rule_ends(inp, partners, inv)]
     idx = np.arange(len(rules))
     along = np.column_stack([e[idx, ax] - t_c[idx, ax] for e in ends])
     acr = np.column_stack([e[idx, 1 - ax] - t_c[idx, 1 - ax] for e in ends])
@@ -1015,7 +1040,18 @@ def judge_rules(tmpl: FrameArrays, inp: FrameArrays, rules: np.ndarray, partners
     worst = np.where(at_ends[:, 0] >= at_ends[:, 1], mid - slope * half, mid + slope * half)
     across = np.zeros((len(rules), 2))
     across[idx, 1 - ax] = worst
-    covered = np.clip(np.minimum(along[:, 1], half) - np.maximum(along[:, 0], -half), 0.0, None) / (2 * half)
+    # Every found rule on the expected line counts towards the span it covers.
+    lines = np.flatnonzero(inp.classes == LINE)
+    e0, e1 = _rule_ends(inp, lines, inv)
+    covered = np.zeros(len(rules))
+    for r in idx:
+        a, b = ax[r], 1 - ax[r]
+        p0, p1 = e0 - expected_offset[r] - t_c[r], e1 - expected_offset[r] - t_c[r]
+        on = ((np.abs(p0[:, b]) <= near) & (np.abs(p1[:, b]) <= near)
+              & (np.abs(p1[:, a] - p0[:, a]) >= 2.0 * np.abs(p1[:, b] - p0[:, b])))
+        iv = np.sort(np.column_stack([p0[on, a], p1[on, a]]), axis=1)
+        own = np.array([[along[r, 0], along[r, 1]]])
+        covered[r] = _covered_share(np.vstack([iv, own]), half[r])
     over = (np.where(free[:, 0], np.clip(-half - along[:, 0], 0.0, None), 0.0)
             + np.where(free[:, 1], np.clip(along[:, 1] - half, 0.0, None), 0.0)) / (2 * half)
     span_ratio = np.where(covered < 1.0 - size_tol, covered, covered + over)

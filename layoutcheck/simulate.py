@@ -306,8 +306,8 @@ def _warp(img: np.ndarray, pose: Pose, page_pt: tuple[float, float], dpi: tuple[
     """The image displaced by a smooth random field whose largest size over the content is ``warp_mm``.
 
     The field is a sum of four plane waves of wavelengths 1.2 to 3 times the page's size (a sheet
-    lifting off the glass bends over its whole width, not in ripples), sampled on a coarse grid
-    and interpolated; ``cv2.remap`` draws the page through it.
+    lifting off the glass bends over its whole width, not in ripples) less its affine part,
+    sampled on a coarse grid and interpolated; ``cv2.remap`` draws the page through it.
     """
     h, w = img.shape[:2]
     gw, gh = max(2, w // 16), max(2, h // 16)
@@ -324,6 +324,14 @@ def _warp(img: np.ndarray, pose: Pose, page_pt: tuple[float, float], dpi: tuple[
     sx = corners[:, 0] * dpi[0] / POINTS_PER_INCH / w * gw
     sy = corners[:, 1] * dpi[1] / POINTS_PER_INCH / h * gh
     inside = ((uu * gw >= sx.min()) & (uu * gw <= sx.max()) & (vv * gh >= sy.min()) & (vv * gh <= sy.max()))
+    if not inside.any():
+        inside[:] = True
+    # The part of the field that one affine pose can take (a stretch, a turn) is the pose's, not
+    # the bend's: it is removed (least squares over the content), so the truth pose stays exact.
+    a = np.column_stack([np.ones(int(inside.sum())), uu[inside], vv[inside]])
+    for axis in (0, 1):
+        coef = np.linalg.lstsq(a, field[..., axis][inside], rcond=None)[0]
+        field[..., axis] -= (coef[0] + coef[1] * uu + coef[2] * vv).astype(np.float32)
     size = np.hypot(field[..., 0], field[..., 1])
     field *= warp_mm / max(float(size[inside].max() if inside.any() else size.max()), 1e-9)
     full = cv2.resize(field, (w, h), interpolation=cv2.INTER_LINEAR)

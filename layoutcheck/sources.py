@@ -132,6 +132,13 @@ def square_pixels(page: RasterPage) -> RasterPage:
     image = cv2.resize(page.image, size, interpolation=interp)
     if page.bitonal:
         image = np.where(image >= 128, 255, 0).astype(np.uint8)
+        if page.dpi_y < page.dpi_x:
+            # A thin rule crossing from one of the fax's tall rows to the next lies half in each
+            # over a long stretch, and the fax's threshold keeps a random half of its pixels:
+            # ink is closed along the rows over as many pixels as a row is taller than wide.
+            k = 2 * int(round(page.dpi_x / page.dpi_y)) + 1
+            image = cv2.erode(image, np.ones((1, k), np.uint8))
+            image = cv2.dilate(image, np.ones((1, k), np.uint8))
     return RasterPage(page.source, page.page, image, dpi, page.bitonal)
 
 

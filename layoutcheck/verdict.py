@@ -131,7 +131,7 @@ class CutOff:
         return max(self.beyond_mm.values(), default=0.0)
 
 
-def _beyond(frames: np.ndarray, pose, input_size: tuple[float, float]) -> np.ndarray:
+def beyond_edges(frames: np.ndarray, pose, input_size: tuple[float, float]) -> np.ndarray:
     """(N, 4) points of each frame beyond the image's top, bottom, left and right edges."""
     x0, t, x1, b = (frames[:, k] for k in range(4))
     corners = np.stack([np.stack([x0, t], 1), np.stack([x1, t], 1), np.stack([x1, b], 1), np.stack([x0, b], 1)], 1)
@@ -154,7 +154,7 @@ def cut_off(match: Match, input_size: tuple[float, float], tolerances: Tolerance
     from .elements import MM_PER_POINT
 
     frames = np.array([e.frame for e in match.elements], float)
-    beyond = _beyond(frames, match.pose, input_size) * MM_PER_POINT
+    beyond = beyond_edges(frames, match.pose, input_size) * MM_PER_POINT
     worst = beyond.max(0)
     if worst.max() <= tolerances.max_cut_mm:
         return None
@@ -168,7 +168,7 @@ def cut_off(match: Match, input_size: tuple[float, float], tolerances: Tolerance
         items = list(items)
         if not items:
             return ()
-        far = _beyond(np.array([i.frame for i in items], float), match.pose, input_size).max(1) * MM_PER_POINT
+        far = beyond_edges(np.array([i.frame for i in items], float), match.pose, input_size).max(1) * MM_PER_POINT
         return tuple(i.name for i, d in zip(items, far) if d > tolerances.max_cut_mm)
 
     return CutOff({e: float(v) for e, v in zip(EDGES, worst) if v > tolerances.max_cut_mm}, share,

@@ -4,6 +4,9 @@ Run: ``python bench/bench_intake.py --part nuisances|flatbed [--n 30] [--flatbed
 [--before PATH]``. Writes ``bench/results/intake_<part>.md``; ``bench/collect.py`` puts them in
 ``docs/benchmarks.md``.
 
+Today's code is a checkout of the commit before this work, made with
+``git worktree add /tmp/base12 3faa966`` (the default of ``--before``).
+
 Every scan is simulated once (with the new simulator) and written to a file; the files are then
 checked by two processes, one with today's code first on ``PYTHONPATH`` (``--before``, a checkout
 of the code before this work) and one with the code under test, each learning its own templates

@@ -5,7 +5,10 @@ measured side by side in one run of that benchmark); this script puts them in on
 fixed order, under a short preface. Run it after the benchmarks:
 
     python bench/bench_consensus.py && python bench/bench_raster.py && python bench/bench_scans.py \\
-      && python bench/bench_normalise.py && python bench/bench_batch.py && python bench/collect.py
+      && python bench/bench_normalise.py && python bench/bench_batch.py \\
+      && python bench/bench_intake.py --part nuisances --only 0-6 \\
+      && python bench/bench_intake.py --part nuisances --only 7-12 \\
+      && python bench/bench_intake.py --part flatbed && python bench/collect.py
 """
 
 from __future__ import annotations
@@ -20,6 +23,9 @@ ORDER = (
     ("scans", "Simulated scans: accuracy, speed and memory end to end"),
     ("normalise", "Normalised pages and zones"),
     ("batch", "Batches: throughput, choosing among 50 templates, memory"),
+    ("intake_nuisances_0-6", "Imperfect scans from real intake, part 1: faxes, faded print, warps, headings, rules"),
+    ("intake_nuisances_7-12", "Imperfect scans from real intake, part 2: cut-off pages, colours, shadows, holes, tints"),
+    ("intake_flatbed", "Imperfect scans from real intake: the flatbed suite, today's code and the new side by side"),
 )
 PREFACE = """# Benchmarks
 

@@ -36,6 +36,10 @@ class Tolerances:
     element_tolerance_mm: float = 2.0
     #: Relative size change of an element still accepted (common practice).
     element_size_pct: float = 10.0
+    #: Share of judged template elements that must agree for the page to be this form. Chosen
+    #: so a filled form (every element there) passes with room and a different form of the same
+    #: house style (shared rules and margins) does not; see docs/benchmarks.md.
+    min_support: float = 0.5
     #: Millimetres of the form that may lie beyond an edge of the image before the page is
     #: "incomplete" (common practice: as much as an element may sit from its place; beyond it a
     #: box loses its side and a field's text may be cut).
@@ -44,10 +48,6 @@ class Tolerances:
     #: a curled sheet) before the bend is a finding of its own; each element is judged against
     #: the bend either way (common practice: as much as an element may sit from its place).
     max_warp_mm: float = 2.0
-    #: Share of judged template elements that must agree for the page to be this form. Chosen
-    #: so a filled form (every element there) passes with room and a different form of the same
-    #: house style (shared rules and margins) does not; see docs/benchmarks.md.
-    min_support: float = 0.5
 
     def __post_init__(self) -> None:
         for f in fields(self):

@@ -109,6 +109,22 @@ def test_standard_fax_is_checked_on_its_own_grid(tmp_path, reference, template):
     assert np.allclose(zone["quad"][0], expect, atol=1.5)
 
 
+def test_normalised_fax_page_is_square_and_in_place():
+    from layoutcheck.normalise import normalise_image
+
+    # A 20 x 20 pt black square at (100, 200) pt on a 204 x 98 dpi page (1 pt = 1/72 in).
+    img = np.full(A4_FAX_PX, 255, np.uint8)
+    c0, c1 = round(100 * 204 / 72), round(120 * 204 / 72)
+    r0, r1 = round(200 * 98 / 72), round(220 * 98 / 72)
+    img[r0:r1, c0:c1] = 0
+    norm = normalise_image(img, (204.0, 98.0), Pose.identity(), (210 * MM, 297 * MM), bitonal=True)
+    assert norm.dpi == 204.0 and norm.image.shape == (2385, 1687)  # ISO 216 A4 at 204 dpi
+    rows, cols = np.nonzero(norm.image < 128)
+    k = 204 / 72
+    assert abs(cols.min() - 100 * k) <= 1.5 and abs(cols.max() + 1 - 120 * k) <= 1.5
+    assert abs(rows.min() - 200 * k) <= 2.5 and abs(rows.max() + 1 - 220 * k) <= 2.5
+
+
 # -- faint forms ----------------------------------------------------------------------------------
 def test_otsu_on_a_faded_page_agrees_with_scikit_image(reference):
     from skimage.filters import threshold_otsu  # the reference implementation

@@ -341,6 +341,18 @@ def test_cut_off_page_is_incomplete_and_names_what_is_missing(reference, templat
             assert f"'{z.name}'" not in cut["message"], (z.name, cut["message"])
 
 
+def test_form_cut_by_the_edge_is_kept_but_an_edge_shadow_is_not():
+    from layoutcheck.extract.raster.binarise import _off_border
+
+    mask = np.zeros((400, 300), bool)
+    mask[:, :6] = True  # a dark band along the left edge (a scanner's shadow)
+    mask[100:300:20, 50:300] = True  # a table's rules, cut by the right edge
+    mask[100:281, 50:300:50] = True  # ... and its columns
+    out = _off_border(mask, 2)
+    assert not out[:, :6].any()  # the band is dropped
+    assert np.array_equal(out[:, 40:], mask[:, 40:])  # the table is kept whole
+
+
 # -- kept and to stay working ---------------------------------------------------------------------
 @pytest.mark.parametrize("name, kw", [
     ("dropout red", {"colour": ((235, 140, 130), (255, 255, 255))}),

@@ -19,7 +19,8 @@ import numpy as np
 from .consensus import Match, SolverSettings, solve
 from .elements import MM_PER_POINT, Element, PageElements
 from .identify import IdentifySettings
-from .sources import USUAL_DPI, PageError, RasterPage, ReadLimits, VectorPage, page_content_problem, read_pages, render_pdf_page, where
+from .sources import (FAINT_CONTRAST, USUAL_DPI, PageError, RasterPage, ReadLimits, VectorPage, page_content_problem,
+                      page_contrast, read_pages, render_pdf_page, square_pixels, where)
 from .template import LearnError, Template, TemplatePage, template_page, with_raster_sections
 from .verdict import SEVERITY, Finding, Tolerances, judge, offending, people_first, too_small
 
@@ -372,18 +373,22 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
     t0 = time.perf_counter()
     if isinstance(page, PageError):
         return error_record(page.source, page.page, page.message)
-    # A page that was read but cannot hold a form (blank, black) is "unrecognised", not "error":
-    # errors are for input that could not be read at all.
-    problem = page_content_problem(page.image) if isinstance(page, RasterPage) else None
-    if problem:
-        return unrecognised_record(page.source, page.page, f"Not a form: {problem}", t0)
     cap = None
     try:
         if isinstance(page, RasterPage):
             from .capture import prepare
 
+            # A photo is judged by its sheet, found on the desk and evenly lit: the desk's
+            # texture must not pass for the paper's noise, nor its edges for ink.
             cap = prepare(page, camera=not page.dpi_stated)
-        found = extract(page if cap is None else cap.page)
+        seen = page if cap is None else cap.page
+        # A page that was read but cannot hold a form (blank, black) is "unrecognised", not
+        # "error": errors are for input that could not be read at all.
+        contrast = page_contrast(seen.image) if isinstance(seen, RasterPage) and seen.image.size else None
+        problem = page_content_problem(seen.image, contrast) if isinstance(seen, RasterPage) else None
+        if problem:
+            return unrecognised_record(page.source, page.page, f"Not a form: {problem}", t0)
+        found = extract(seen)
     except MemoryError:  # the worker answers for its memory limit
         raise
     except Exception as exc:  # an extractor bug on one page must not end the batch
@@ -391,7 +396,13 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
         return error_record(page.source, page.page, msg, (time.perf_counter() - t0) * 1000)
     if not found.elements:
         return unrecognised_record(page.source, page.page, "Not a form: no lines, boxes or text found on the page (blank page?)", t0)
-    return record_for(page.source, page.page, found, templates, settings, t0, page=page, capture=cap)
+    rec = record_for(page.source, page.page, found, templates, settings, t0, page=page, capture=cap)
+    if contrast is not None and contrast.contrast < FAINT_CONTRAST and rec["template"] is not None:
+        # Verified, but staff should know why OCR may struggle on this page.
+        rec["findings"].append(Finding("pass", f"Faint print: the ink is only {contrast.contrast:.0f} grey levels darker "
+                                       f"than the paper (clear print: over {FAINT_CONTRAST:.0f}); OCR may misread it",
+                                       value=contrast.contrast, limit=FAINT_CONTRAST).to_dict())
+    return rec
 
 
 #: Scales considered for a photo whose sheet was found: its page is the sheet at a resolution
@@ -445,7 +456,7 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         from .capture import readability as measure
 
         readability = measure(match.pose, (tp.width, tp.height), page.dpi)
-    verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size,
+    verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size, zones=tp.zones,
                               camera=camera, readability=readability)
     recognised = verdict != "unrecognised"
     if recognised:
@@ -461,6 +472,8 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         "findings": [f.to_dict() for f in findings],
         "pose": pose_record(match, tp, input_size) if recognised else None,
         "support": round(match.support, 4),
+        # Largest displacement of the smooth residual field (paper not flat), mm.
+        "warp_mm": round(match.field.largest_mm, 2) if recognised and match.field is not None else None,
         "offending": offending(match, ("missing", "resized") if camera and too_small(readability, settings.tolerances)
                                else ()) if recognised else [],
         "sections": [
@@ -660,7 +673,8 @@ def look_again(page: RasterPage, found: PageElements, tp: TemplatePage, match: M
     if not wanted:
         return found, match
     expected = [e for e in tp.elements_for(found.source) if e.id in wanted]
-    looked = [e for e in second_look(page.image, page.dpi, expected, match.pose) if e is not None]
+    square = square_pixels(page)
+    looked = [e for e in second_look(square.image, square.dpi, expected, match.pose) if e is not None]
     near = 0.5 / MM_PER_POINT
     new = []
     for e in looked:
@@ -691,7 +705,8 @@ def handoff(rec: dict, page, found: PageElements, tp: TemplatePage, match: Match
         if not recognised:
             rec["zones"] = []
         elif isinstance(page, RasterPage):
-            rec["zones"] = zones_for_match(tp, match, page.dpi, (page.image.shape[1], page.image.shape[0]))
+            # On the input's own pixel grid, per axis (a fax's pixels are twice as tall as wide).
+            rec["zones"] = zones_for_match(tp, match, page.dpi_xy, (page.image.shape[1], page.image.shape[0]))
         else:
             rec["zones"] = zones_for_match(tp, match, None, (found.width, found.height))
     if settings.normalise_dir:

@@ -34,6 +34,7 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 from .elements import KIND_CLASS, MM_PER_POINT
+from .field import ResidualField, field_of_match
 from .pose import Pose
 
 #: Offsets (in cells) of the shift grids: two grids, the second shifted by half a cell on both
@@ -106,6 +107,9 @@ class SolverSettings:
     #: Grow the agreeing set region by region from the vote's cluster (for pages seen in
     #: perspective, whose single-element votes agree only locally).
     grow: bool = False
+    #: Another element this close to a rule's end meets it (about 1.5 mm): the rule's extent
+    #: there is not judged (see :func:`free_rule_ends`).
+    rule_meet: float = 4.25
 
 
 @dataclass(frozen=True)
@@ -151,6 +155,9 @@ class Match:
     hypotheses: int = 0
     pairs: int = 0
     reason: str = ""
+    #: Smooth displacement left after the pose (paper not flat), see :mod:`layoutcheck.field`;
+    #: every element was judged against pose + field.
+    field: "ResidualField | None" = None
 
     @property
     def recognised(self) -> bool:
@@ -971,6 +978,17 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     if len(got):
         ratios[got] = size_ratios(tmpl, inp, got, final[got], pose)
         offsets[got] = inv.apply(inp.centers[final[got]]) - tmpl.centers[got]
+    # -- the residual field: each element is judged against pose + field (paper not flat) --
+    field = field_of_match(tmpl.centers, offsets - shift_t, [e.kind for e in tmpl_els], final >= 0)
+    bend = field.at(tmpl.centers) if field is not None else np.zeros((n, 2))
+    # -- rules are judged as rules: across themselves and by the span they cover --
+    rules = np.flatnonzero((final >= 0) & np.isin([e.kind for e in tmpl_els], RULE_KINDS))
+    if len(rules):
+        across, span_ratio = judge_rules(tmpl, inp, rules, final[rules], inv, shift_t[rules] + bend[rules],
+                                         free_rule_ends(tmpl_els, rules, settings.rule_meet), size_tol, position_tol)
+        offsets[rules] = across + shift_t[rules] + bend[rules]
+        ratios[rules] = span_ratio
+    # --
     for k, e in enumerate(tmpl_els):
         j = int(final[k])
         s_i = int(sec_of[k])
@@ -981,7 +999,7 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
             continue
         # Offset in the template's axes, relative to the page pose (section shift included).
         off = offsets[k]
-        own = off - shift_t[k]
+        own = off - shift_t[k] - bend[k]
         ratio = float(ratios[k])
         tol = position_tol + float(slack.get(e.id, 0.0))
         if np.hypot(*own) > tol:
@@ -1006,7 +1024,122 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
                                          (float(sec_shift[s_i, 0] * MM_PER_POINT), float(sec_shift[s_i, 1] * MM_PER_POINT)),
                                          share, int(len(members))))
     support = float(ok_mask[judged].mean()) if judged.any() else 0.0
-    return Match(pose, support, tuple(results), tuple(sec_results), len(hyps), len(ti))
+    return Match(pose, support, tuple(results), tuple(sec_results), len(hyps), len(ti), field=field)
+
+
+# -- rules ----------------------------------------------------------------------------------------
+RULE_KINDS = ("hline", "vline")
+
+
+def free_rule_ends(tmpl_els, rules: np.ndarray, meet: float) -> np.ndarray:
+    """(R, 2) bool: whether each end (low, high along the rule) of each template rule is free.
+
+    An end is not free when another rule, box or mark of the template lies within ``meet``
+    points of it (a rule running into a box side, a T-junction): in a scan the rule's ink runs on
+    into that element, so its measured extent there says nothing about the rule.
+    """
+    frames = np.array([e.frame for e in tmpl_els], float)
+    other = np.array([e.kind_class != "text" for e in tmpl_els], bool)
+    out = np.ones((len(rules), 2), bool)
+    for r, k in enumerate(rules):
+        x0, top, x1, bottom = frames[k]
+        ax = 0 if (x1 - x0) >= (bottom - top) else 1
+        c = np.array([(x0 + x1) / 2, (top + bottom) / 2])
+        half = (frames[k, 2 + ax] - frames[k, ax]) / 2
+        for end, sign in enumerate((-1.0, 1.0)):
+            p = c.copy()
+            p[ax] += sign * half
+            near = (other & (frames[:, 0] - meet <= p[0]) & (frames[:, 2] + meet >= p[0])
+                    & (frames[:, 1] - meet <= p[1]) & (frames[:, 3] + meet >= p[1]))
+            near[k] = False
+            out[r, end] = not near.any()
+    return out
+
+
+def _rule_ends(fa: FrameArrays, idx: np.ndarray, inv: Pose) -> tuple[np.ndarray, np.ndarray]:
+    """Both ends of found rules ``idx``, taken back through the pose: two (M, 2) arrays."""
+    c, sz = fa.centers[idx], fa.sizes[idx]
+    ang = np.radians(np.nan_to_num(fa.angles[idx]))
+    ax = np.argmax(sz, axis=1)
+    direction = np.where((ax == 0)[:, None], np.column_stack([np.cos(ang), np.sin(ang)]),
+                         np.column_stack([-np.sin(ang), np.cos(ang)]))
+    half = sz[np.arange(len(idx)), ax] / 2
+    return inv.apply(c - half[:, None] * direction), inv.apply(c + half[:, None] * direction)
+
+
+def _covered_share(intervals: np.ndarray, half: float) -> float:
+    """Share of ``[-half, half]`` covered by the union of (K, 2) intervals."""
+    iv = np.clip(intervals, -half, half)
+    iv = iv[iv[:, 1] > iv[:, 0]]
+    if not len(iv):
+        return 0.0
+    iv = iv[np.argsort(iv[:, 0])]
+    total, lo, hi = 0.0, iv[0, 0], iv[0, 1]
+    for a, b in iv[1:]:
+        if a > hi:
+            total += hi - lo
+            lo, hi = a, b
+        else:
+            hi = max(hi, b)
+    return float((total + hi - lo) / (2 * half))
+
+
+def judge_rules(tmpl: FrameArrays, inp: FrameArrays, rules: np.ndarray, partners: np.ndarray, inv: Pose,
+                expected_offset: np.ndarray, free: np.ndarray, size_tol: float,
+                near: float = 5.67) -> tuple[np.ndarray, np.ndarray]:
+    """How matched rules sit, judged as rules.
+
+    Each found rule's two ends are taken back through the pose (``inv``) and the expected
+    offset (section shift and residual field) is removed. Across the rule, its offset is the
+    larger of the found line's distances from the expected line at the expected rule's two
+    ends (so a turned rule counts at its worst end). Along it, nothing is measured from where
+    its ends are; only its span: the share of the expected span covered by the found rules
+    lying on its line (within ``near`` points across, parallel: a rule broken in pieces by a
+    bend of the paper or by a stamp still covers its span), and how far its partner runs past
+    a *free* end (one where no other element of the template meets it, see
+    :func:`free_rule_ends`).
+
+    Returns
+    -------
+    across : (R, 2) array
+        Offset across each rule, in the template's axes (zero along it), points.
+    span_ratio : (R,) array
+        Length judged over length expected: the covered span plus any overrun at free ends, or
+        the covered span alone when the rule falls short of ``1 - size_tol`` of its length.
+    """
+    t_c, t_s = tmpl.centers[rules], tmpl.sizes[rules]
+    ax = np.argmax(t_s, axis=1)
+    half = t_s[np.arange(len(rules)), ax] / 2
+    ends = [e - expected_offset for e in _rule_ends(inp, partners, inv)]
+    idx = np.arange(len(rules))
+    along = np.column_stack([e[idx, ax] - t_c[idx, ax] for e in ends])
+    acr = np.column_stack([e[idx, 1 - ax] - t_c[idx, 1 - ax] for e in ends])
+    order = np.argsort(along, axis=1)
+    along = np.take_along_axis(along, order, 1)
+    acr = np.take_along_axis(acr, order, 1)
+    run = along[:, 1] - along[:, 0]
+    slope = np.where(run > 1.0, (acr[:, 1] - acr[:, 0]) / np.maximum(run, 1.0), 0.0)
+    mid = acr.mean(1) - slope * along.mean(1)
+    at_ends = np.abs(np.column_stack([mid - slope * half, mid + slope * half]))
+    worst = np.where(at_ends[:, 0] >= at_ends[:, 1], mid - slope * half, mid + slope * half)
+    across = np.zeros((len(rules), 2))
+    across[idx, 1 - ax] = worst
+    # Every found rule on the expected line counts towards the span it covers.
+    lines = np.flatnonzero(inp.classes == LINE)
+    e0, e1 = _rule_ends(inp, lines, inv)
+    covered = np.zeros(len(rules))
+    for r in idx:
+        a, b = ax[r], 1 - ax[r]
+        p0, p1 = e0 - expected_offset[r] - t_c[r], e1 - expected_offset[r] - t_c[r]
+        on = ((np.abs(p0[:, b]) <= near) & (np.abs(p1[:, b]) <= near)
+              & (np.abs(p1[:, a] - p0[:, a]) >= 2.0 * np.abs(p1[:, b] - p0[:, b])))
+        iv = np.sort(np.column_stack([p0[on, a], p1[on, a]]), axis=1)
+        own = np.array([[along[r, 0], along[r, 1]]])
+        covered[r] = _covered_share(np.vstack([iv, own]), half[r])
+    over = (np.where(free[:, 0], np.clip(-half - along[:, 0], 0.0, None), 0.0)
+            + np.where(free[:, 1], np.clip(along[:, 1] - half, 0.0, None), 0.0)) / (2 * half)
+    span_ratio = np.where(covered < 1.0 - size_tol, covered, covered + over)
+    return across, span_ratio
 
 
 def _on_page(elements, shift: np.ndarray, pose: Pose, page_size: tuple[float, float], margin: float = 2.83) -> np.ndarray:

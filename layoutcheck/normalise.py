@@ -46,12 +46,15 @@ def scale_matrix(factor: float) -> np.ndarray:
     return np.diag([factor, factor, 1.0])
 
 
-def output_to_input_px(pose: Pose, input_dpi: float, output_dpi: float) -> np.ndarray:
+def output_to_input_px(pose: Pose, input_dpi: float | tuple[float, float], output_dpi: float) -> np.ndarray:
     """3 x 3 map from continuous output pixels to continuous input pixels.
 
-    ``output px -> template points (x 72/dpi_out) -> input points (pose) -> input px (x dpi_in/72)``.
+    ``output px -> template points (x 72/dpi_out) -> input points (pose) -> input px (x dpi_in/72)``;
+    ``input_dpi`` may be ``(dpi_x, dpi_y)`` for an input whose pixels are not square (a fax).
     """
-    return scale_matrix(input_dpi / POINTS_PER_INCH) @ pose.matrix @ scale_matrix(POINTS_PER_INCH / output_dpi)
+    dx, dy = (float(input_dpi), float(input_dpi)) if np.ndim(input_dpi) == 0 else map(float, input_dpi)
+    to_px = np.diag([dx / POINTS_PER_INCH, dy / POINTS_PER_INCH, 1.0])
+    return to_px @ pose.matrix @ scale_matrix(POINTS_PER_INCH / output_dpi)
 
 
 def to_centre_convention(m: np.ndarray) -> np.ndarray:
@@ -124,25 +127,26 @@ def resample(image: np.ndarray, out_to_in: np.ndarray, size: tuple[int, int], bi
     return out
 
 
-def normalise_image(image: np.ndarray, input_dpi: float, pose: Pose, template_size_pt: tuple[float, float],
+def normalise_image(image: np.ndarray, input_dpi: float | tuple[float, float], pose: Pose, template_size_pt: tuple[float, float],
                     output_dpi: float | None = None, bitonal: bool = False) -> Normalised:
     """Resample an input page image into the template's frame.
 
     Parameters
     ----------
     image : (H, W) uint8 array
-        The input page at ``input_dpi``.
+        The input page at ``input_dpi`` (one value, or ``(dpi_x, dpi_y)``: the image is read
+        on its own pixel grid, whatever its pixels' shape).
     pose : Pose
         Template points -> input points, as measured.
     template_size_pt : (width, height)
         Size of the template page, points: the output covers exactly it.
     output_dpi : float, optional
-        Default: ``input_dpi``.
+        Default: ``input_dpi`` (its finer axis when given per axis); output pixels are square.
     bitonal : bool
         Input is black and white; the output stays so.
     """
-    dpi = float(output_dpi or input_dpi)
-    m = output_to_input_px(pose, float(input_dpi), dpi)
+    dpi = float(output_dpi or np.max(input_dpi))
+    m = output_to_input_px(pose, input_dpi, dpi)
     out = resample(image, m, output_size(template_size_pt, dpi), bitonal)
     return Normalised(out, dpi, bitonal)
 
@@ -230,7 +234,7 @@ def normalise_page(page, pose: Pose, template_size_pt: tuple[float, float], out_
             raster = page
         else:
             return {"path": None, "dpi": out_dpi, "error": f"{where(page.source, page.page)}: no image to normalise"}
-        norm = normalise_image(raster.image, raster.dpi, pose, template_size_pt, out_dpi, bool(raster.bitonal))
+        norm = normalise_image(raster.image, raster.dpi_xy, pose, template_size_pt, out_dpi, bool(raster.bitonal))
         os.makedirs(out_dir, exist_ok=True)
         target = claim_path(output_path(out_dir, page.source, page.page, fmt), replace)
         try:

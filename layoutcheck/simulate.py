@@ -2,8 +2,10 @@
 
 A page is rendered with pypdfium2 at ``oversample`` times the scan resolution, turned, scaled and
 shifted with ``cv2.warpAffine`` (bilinear, white outside the page), reduced to the scan
-resolution by area averaging, then degraded: fill-in scribbles, a stamp, punch holes, an edge
-shadow, blur, noise, salt and pepper, JPEG and bitonal thresholding.
+resolution by area averaging (per axis: a fax's pixels are taller than wide), then degraded:
+fill-in scribbles, halftone tints in boxes, a stamp, faded print, a smooth warp of paper that
+does not lie flat, punch holes, an edge shadow, blur, noise, salt and pepper, JPEG, bitonal
+thresholding, colour (coloured ink on tinted paper) and a feeder's cut-off edge.
 
 The pixel convention is that of :mod:`layoutcheck.extract.raster`: pixel ``(col, row)`` covers
 ``[col, col + 1) x [row, row + 1)``, a continuous pixel coordinate ``p`` is ``p * 72 / dpi``
@@ -47,11 +49,21 @@ class ScanSettings:
     seed: int = 0
     oversample: int | None = None
     hand: bool = False
+    dpi_y: float | None = None
+    fade: float | None = None
+    warp_mm: float = 0.0
+    tint: bool = False
+    colour: tuple | None = None
+    cut: tuple[str, float] | None = None
 
 
 @dataclass(frozen=True)
 class SimulatedScan:
-    """A simulated scan: grey image, resolution and the truth pose (template -> scan points)."""
+    """A simulated scan: image, resolution and the truth pose (template -> scan points).
+
+    The image is grey ``(H, W)``, or ``(H, W, 3)`` RGB for a colour scan; ``dpi`` is the
+    resolution across, ``dpi_y`` down (None: square pixels).
+    """
 
     image: np.ndarray = field(repr=False)
     dpi: float
@@ -59,12 +71,20 @@ class SimulatedScan:
     settings: ScanSettings
     #: Size of the source PDF page (the template), points.
     page_size_pt: tuple[float, float]
+    dpi_y: float | None = None
+    #: Largest displacement of the smooth warp over the content, mm (0 when flat).
+    warp_max_mm: float = 0.0
+
+    @property
+    def dpi_xy(self) -> tuple[float, float]:
+        return float(self.dpi), float(self.dpi if self.dpi_y is None else self.dpi_y)
 
     @property
     def size_pt(self) -> tuple[float, float]:
         """Size of the scan in points."""
-        h, w = self.image.shape
-        return (w * POINTS_PER_INCH / self.dpi, h * POINTS_PER_INCH / self.dpi)
+        h, w = self.image.shape[:2]
+        dx, dy = self.dpi_xy
+        return (w * POINTS_PER_INCH / dx, h * POINTS_PER_INCH / dy)
 
     @property
     def bitonal(self) -> bool:
@@ -130,6 +150,11 @@ def simulate_scan(
     seed: int = 0,
     oversample: int | None = None,
     hand: bool = False,
+    fade: float | None = None,
+    warp_mm: float = 0.0,
+    tint: bool = False,
+    colour: tuple | None = None,
+    cut: tuple[str, float] | None = None,
 ) -> SimulatedScan:
     """Scan a PDF page in simulation.
 
@@ -137,8 +162,9 @@ def simulate_scan(
     ----------
     source_pdf : path
         The PDF; ``page`` is 1-based.
-    dpi : float
-        Scan resolution; the image is ``round(paper size * dpi / 72)`` pixels.
+    dpi : float or (dpi_x, dpi_y)
+        Scan resolution, one or per axis (a fax: ``(204, 98)``); the image is
+        ``round(paper size * dpi / 72)`` pixels on each axis.
     rotation_deg : float
         Turn of the content, counterclockwise as seen, about the paper's centre.
     scale : (sx, sy) or float
@@ -167,6 +193,19 @@ def simulate_scan(
         free rules of the form that runs past their ends, signatures across signature rules with
         a flourish along them, and long, nearly straight strokes (crossings-out, underlines) in
         boxes.
+    fade : float, optional
+        Faded print (a copy of a copy): the ink keeps this share of its darkness, on paper a
+        little grey (``fade=0.4`` puts black at about grey 150).
+    warp_mm : float
+        Largest displacement of a smooth, random warp (paper not flat on the glass), mm.
+    tint : bool
+        Halftone shading (dots at 20 % cover) in some boxes.
+    colour : (ink RGB, paper RGB), optional
+        A 24-bit colour scan: the grey page's darkness drawn in the ink colour on the paper
+        colour (dropout red on white, black on yellowish paper...). The image is ``(H, W, 3)``.
+    cut : (edge, share), optional
+        The feeder cut the image: ``share`` of the page's height (top, bottom) or width (left,
+        right) is not on it. The truth pose stays that of the page's content on the image.
 
     Returns
     -------
@@ -174,44 +213,60 @@ def simulate_scan(
     """
     if np.isscalar(scale):
         scale = (float(scale), float(scale))  # type: ignore[arg-type]
-    st = ScanSettings(page, float(dpi), float(rotation_deg), tuple(map(float, scale)), tuple(map(float, shift_mm)),
+    dpi_x, dpi_y = (float(dpi), float(dpi)) if np.isscalar(dpi) else (float(dpi[0]), float(dpi[1]))  # type: ignore[index]
+    st = ScanSettings(page, dpi_x, float(rotation_deg), tuple(map(float, scale)), tuple(map(float, shift_mm)),
                       float(blur_sigma_px), float(noise_sigma), float(salt_pepper), jpeg_quality, bitonal_threshold,
                       bool(fill), bool(stamp), bool(edge_shadow), bool(punch_holes),
                       None if paper_size_pt is None else tuple(map(float, paper_size_pt)), int(seed),
-                      None if oversample is None else int(oversample), bool(hand))
+                      None if oversample is None else int(oversample), bool(hand), None if dpi_x == dpi_y else dpi_y,
+                      None if fade is None else float(fade), float(warp_mm), bool(tint),
+                      None if colour is None else tuple(tuple(map(int, c)) for c in colour),
+                      None if cut is None else (str(cut[0]), float(cut[1])))
     rng = np.random.default_rng(seed)
-    os_ = max(2, int(math.ceil(600.0 / dpi))) if oversample is None else max(1, int(oversample))
-    rdpi = dpi * os_
+    if oversample is None:
+        osx, osy = (max(2, int(math.ceil(600.0 / d))) for d in (dpi_x, dpi_y))
+    else:
+        osx = osy = max(1, int(oversample))
+    rdpi = max(dpi_x * osx, dpi_y * osy)
     rendered, page_pt = render_page(source_pdf, page, rdpi)
     paper = page_pt if paper_size_pt is None else tuple(paper_size_pt)
     # The image holds the paper rounded to whole pixels; the pose is about the paper itself, so an
     # unturned scan of a page on its own paper size has the identity pose.
-    W, H = int(round(paper[0] * dpi / POINTS_PER_INCH)), int(round(paper[1] * dpi / POINTS_PER_INCH))
+    W, H = int(round(paper[0] * dpi_x / POINTS_PER_INCH)), int(round(paper[1] * dpi_y / POINTS_PER_INCH))
     pose = truth_pose(page_pt, paper, rotation_deg, scale, shift_mm)
     if fill:
         rendered = _draw_fill(rendered, source_pdf, page, rdpi, rng)
     if hand:
         rendered = _draw_hand(rendered, source_pdf, page, rdpi, np.random.default_rng([seed, 1]))
+    if tint:
+        rendered = _draw_tints(rendered, source_pdf, page, rdpi, rng)
     # Continuous map: render px -> template points -> scan points -> oversampled scan px.
     render_to_pt = np.diag([POINTS_PER_INCH / rdpi, POINTS_PER_INCH / rdpi, 1.0])
-    pt_to_out = np.diag([rdpi / POINTS_PER_INCH, rdpi / POINTS_PER_INCH, 1.0])
+    pt_to_out = np.diag([dpi_x * osx / POINTS_PER_INCH, dpi_y * osy / POINTS_PER_INCH, 1.0])
     m = (pt_to_out @ pose.matrix @ render_to_pt)[:2]
-    big = cv2.warpAffine(rendered, _cv(m), (W * os_, H * os_), flags=cv2.INTER_LINEAR,
+    big = cv2.warpAffine(rendered, _cv(m), (W * osx, H * osy), flags=cv2.INTER_LINEAR,
                          borderMode=cv2.BORDER_CONSTANT, borderValue=255)
-    img = cv2.resize(big, (W, H), interpolation=cv2.INTER_AREA) if os_ > 1 else big
+    img = cv2.resize(big, (W, H), interpolation=cv2.INTER_AREA) if osx * osy > 1 else big
     img = img.astype(np.float32)
+    warp_max = 0.0
+    if warp_mm > 0:
+        img, warp_max = _warp(img, pose, page_pt, (dpi_x, dpi_y), warp_mm, rng)
+    if fade is not None:
+        # Ink keeps a share of its darkness on slightly grey paper: a copy of a copy.
+        paper_grey = float(rng.uniform(232, 245))
+        img = paper_grey - (255.0 - img) * float(fade) * paper_grey / 255.0
     if stamp:
-        img = _draw_stamp(img, dpi, rng)
+        img = _draw_stamp(img, dpi_x, rng)
     if punch_holes:
         for dy in (-40.0, 40.0):  # 80 mm apart, 12 mm from the edge, 6 mm across (ISO 838, from memory)
-            c = (int(round(_px(12.0, dpi))), int(round(H / 2.0 + _px(dy, dpi))))
-            cv2.circle(img, c, int(round(_px(3.0, dpi))), 25.0, -1, lineType=cv2.LINE_AA)
+            c = (int(round(_px(12.0, dpi_x))), int(round(H / 2.0 + _px(dy, dpi_y))))
+            axes = (int(round(_px(3.0, dpi_x))), int(round(_px(3.0, dpi_y))))
+            cv2.ellipse(img, c, axes, 0.0, 0.0, 360.0, 25.0, -1, lineType=cv2.LINE_AA)
     if edge_shadow:
-        band = _px(6.0, dpi)
         xs = np.arange(W, dtype=np.float32) + 0.5
         ys = np.arange(H, dtype=np.float32) + 0.5
-        fx = np.clip(xs / band, 0, 1)[None, :]
-        fy = np.clip(ys / band, 0, 1)[:, None]
+        fx = np.clip(xs / _px(6.0, dpi_x), 0, 1)[None, :]
+        fy = np.clip(ys / _px(6.0, dpi_y), 0, 1)[:, None]
         dark = 0.25 + 0.75 * np.minimum(fx, fy) ** 0.7
         img = img * dark
     if blur_sigma_px > 0:
@@ -228,7 +283,71 @@ def simulate_scan(
         img = cv2.imdecode(buf, cv2.IMREAD_GRAYSCALE)
     if bitonal_threshold is not None:
         img = np.where(img > bitonal_threshold, 255, 0).astype(np.uint8)
-    return SimulatedScan(img, float(dpi), pose, st, page_pt)
+    if colour is not None:
+        ink, paper_rgb = (np.asarray(c, np.float32) for c in colour)
+        dark = (255.0 - img.astype(np.float32))[..., None] / 255.0
+        img = np.clip(np.rint(paper_rgb * (1.0 - dark) + ink * dark), 0, 255).astype(np.uint8)
+    if cut is not None:
+        img, pose = _cut(img, pose, cut, (dpi_x, dpi_y))
+    return SimulatedScan(img, dpi_x, pose, st, page_pt, None if dpi_x == dpi_y else dpi_y, warp_max)
+
+
+def _cut(img: np.ndarray, pose: Pose, cut: tuple[str, float], dpi: tuple[float, float]):
+    """The image without ``share`` of it at ``edge``, and the pose of the content on what is left."""
+    edge, share = cut
+    h, w = img.shape[:2]
+    if edge not in ("top", "bottom", "left", "right") or not 0 < share < 1:
+        raise ValueError(f"cut must be (top|bottom|left|right, share in (0, 1)), got {cut!r}")
+    k = int(round(share * (h if edge in ("top", "bottom") else w)))
+    if edge == "top":
+        img, move = img[k:], (0.0, -k * POINTS_PER_INCH / dpi[1])
+    elif edge == "bottom":
+        img, move = img[: h - k], (0.0, 0.0)
+    elif edge == "left":
+        img, move = img[:, k:], (-k * POINTS_PER_INCH / dpi[0], 0.0)
+    else:
+        img, move = img[:, : w - k], (0.0, 0.0)
+    return np.ascontiguousarray(img), pose.compose(Pose.from_params(0.0, (1.0, 1.0), move))
+
+
+def _warp(img: np.ndarray, pose: Pose, page_pt: tuple[float, float], dpi: tuple[float, float], warp_mm: float,
+          rng: np.random.Generator) -> tuple[np.ndarray, float]:
+    """The image displaced by a smooth random field whose largest size over the content is ``warp_mm``.
+
+    The field is a sum of four plane waves of wavelengths 1.2 to 3 times the page's size (a sheet
+    lifting off the glass bends over its whole width, not in ripples) less its affine part,
+    sampled on a coarse grid and interpolated; ``cv2.remap`` draws the page through it.
+    """
+    h, w = img.shape[:2]
+    gw, gh = max(2, w // 16), max(2, h // 16)
+    u = (np.arange(gw) + 0.5) / gw
+    v = (np.arange(gh) + 0.5) / gh
+    uu, vv = np.meshgrid(u, v)
+    field = np.zeros((gh, gw, 2), np.float32)
+    for axis in (0, 1):
+        for _ in range(2):
+            fx, fy = rng.uniform(-0.8, 0.8, 2)
+            field[..., axis] += np.sin(np.pi * (fx * uu + fy * vv) + rng.uniform(0, 2 * np.pi)).astype(np.float32)
+    # Sized on the content (the page's area under the pose), where it matters.
+    corners = pose.apply(np.array([[0, 0], [page_pt[0], 0], [page_pt[0], page_pt[1]], [0, page_pt[1]]], float))
+    sx = corners[:, 0] * dpi[0] / POINTS_PER_INCH / w * gw
+    sy = corners[:, 1] * dpi[1] / POINTS_PER_INCH / h * gh
+    inside = ((uu * gw >= sx.min()) & (uu * gw <= sx.max()) & (vv * gh >= sy.min()) & (vv * gh <= sy.max()))
+    if not inside.any():
+        inside[:] = True
+    # The part of the field that one affine pose can take (a stretch, a turn) is the pose's, not
+    # the bend's: it is removed (least squares over the content), so the truth pose stays exact.
+    a = np.column_stack([np.ones(int(inside.sum())), uu[inside], vv[inside]])
+    for axis in (0, 1):
+        coef = np.linalg.lstsq(a, field[..., axis][inside], rcond=None)[0]
+        field[..., axis] -= (coef[0] + coef[1] * uu + coef[2] * vv).astype(np.float32)
+    size = np.hypot(field[..., 0], field[..., 1])
+    field *= warp_mm / max(float(size[inside].max() if inside.any() else size.max()), 1e-9)
+    full = cv2.resize(field, (w, h), interpolation=cv2.INTER_LINEAR)
+    mx = (np.arange(w, dtype=np.float32)[None, :] - full[..., 0] * dpi[0] / MM_PER_INCH)
+    my = (np.arange(h, dtype=np.float32)[:, None] - full[..., 1] * dpi[1] / MM_PER_INCH)
+    out = cv2.remap(img, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=255)
+    return out, float(warp_mm)
 
 
 def _px(mm_value: float, dpi: float) -> float:
@@ -377,6 +496,33 @@ def _draw_hand(img: np.ndarray, source_pdf, page: int, rdpi: float, rng: np.rand
     return out
 
 
+def _draw_tints(img: np.ndarray, source_pdf, page: int, rdpi: float, rng: np.random.Generator) -> np.ndarray:
+    """Halftone shading (round dots at 20 % cover, 60 lines per inch) inside about half the boxes.
+
+    60 lpi is a coarse office-printer screen (common practice: 60-85 lpi for laser-printed
+    tints); the dots stay 0.6 mm inside each box so they do not touch its rules.
+    """
+    out = img.copy()
+    k = rdpi / POINTS_PER_INCH
+    period = rdpi / 60.0
+    radius = period * math.sqrt(0.20 / math.pi)
+    inset = _px(0.6, rdpi)
+    for x0, top, x1, bottom, kind in _page_boxes(source_pdf, page):
+        if kind != "box" or rng.random() < 0.5:
+            continue
+        a0, a1 = int(x0 * k + inset), int(x1 * k - inset)
+        b0, b1 = int(top * k + inset), int(bottom * k - inset)
+        if a1 - a0 < 2 * period or b1 - b0 < 2 * period:
+            continue
+        ys, xs = np.mgrid[b0:b1, a0:a1].astype(np.float32)
+        dx = (xs % period) - period / 2
+        dy = (ys % period) - period / 2
+        dot = np.hypot(dx, dy) <= radius
+        region = out[b0:b1, a0:a1]
+        region[dot] = np.minimum(region[dot], 40)
+    return out
+
+
 def _draw_stamp(img: np.ndarray, dpi: float, rng: np.random.Generator) -> np.ndarray:
     """A rectangular stamp outline with text, turned by 8 to 25 degrees, on free space.
 
@@ -447,24 +593,29 @@ def save_scan(scans: SimulatedScan | Sequence[SimulatedScan], path: str | os.Pat
         raise ValueError(f"{path}: {fmt} holds one page; use tiff or pdf for {len(items)} scans")
 
     def pil(s: SimulatedScan):
+        if s.image.ndim == 3:
+            return Image.fromarray(s.image, mode="RGB"), False
         im = Image.fromarray(s.image, mode="L")
         bitonal = s.bitonal and set(np.unique(s.image).tolist()) <= {0, 255}
         return (im.convert("1", dither=Image.Dither.NONE) if bitonal else im), bitonal
 
     images = [pil(s) for s in items]
-    dpi = items[0].dpi
+    dpi = items[0].dpi_xy  # per axis: a fax states 204 x 98
     first, bitonal = images[0]
     rest = [im for im, _ in images[1:]]
     if fmt == "png":
-        first.save(path, format="PNG", dpi=(dpi, dpi))
+        first.save(path, format="PNG", dpi=dpi)
     elif fmt == "jpeg":
-        first.convert("L").save(path, format="JPEG", dpi=(dpi, dpi), quality=jpeg_quality)
+        first.convert("RGB" if first.mode == "RGB" else "L").save(path, format="JPEG", dpi=dpi, quality=jpeg_quality)
     elif fmt == "tiff":
         comp = "group4" if all(b for _, b in images) else "tiff_lzw"
         if comp == "tiff_lzw":
-            first, rest = first.convert("L"), [im.convert("L") for im in rest]
-        first.save(path, format="TIFF", dpi=(dpi, dpi), compression=comp, save_all=True, append_images=rest)
+            mode = "RGB" if any(im.mode == "RGB" for im, _ in images) else "L"
+            first, rest = first.convert(mode), [im.convert(mode) for im in rest]
+        first.save(path, format="TIFF", dpi=dpi, compression=comp, save_all=True, append_images=rest)
     else:
+        if dpi[0] != dpi[1]:
+            raise ValueError(f"{path}: a PDF page is written with square pixels; {dpi[0]:g} x {dpi[1]:g} dpi given")
         # Pillow stores grey pages as JPEG (as scanners do) and bitonal ones as CCITT group 4.
-        first.save(path, format="PDF", resolution=float(dpi), save_all=True, append_images=rest, quality=jpeg_quality)
+        first.save(path, format="PDF", resolution=float(dpi[0]), save_all=True, append_images=rest, quality=jpeg_quality)
     return str(path)

@@ -38,8 +38,10 @@ IMAGE_EXTENSIONS = {".png", ".jpg", ".jpeg", ".tif", ".tiff"}
 PDF_EXTENSIONS = {".pdf"}
 KNOWN_EXTENSIONS = IMAGE_EXTENSIONS | PDF_EXTENSIONS
 
-#: Resolutions scanners are set to (common practice); a measured dpi within 2 % snaps to one.
-USUAL_DPI = (72, 75, 96, 100, 120, 150, 200, 240, 250, 300, 400, 500, 600, 800, 1200)
+#: Resolutions scanners and fax machines are set to, per axis (common practice; fax: 204 x 98
+#: "standard", 204 x 196 "fine", and the metric 200 x 100 / 200 x 200); a stated dpi within 2 %
+#: snaps to the nearest one.
+USUAL_DPI = (72, 75, 96, 98, 100, 120, 150, 196, 200, 204, 240, 250, 300, 400, 500, 600, 800, 1200)
 
 
 @dataclass(frozen=True)
@@ -87,13 +89,19 @@ class VectorPage:
 
 @dataclass
 class RasterPage:
-    """A scanned page: grey image (0 black .. 255 white) and its resolution."""
+    """A scanned page: grey image (0 black .. 255 white) and its resolution per axis.
+
+    ``dpi_x`` is the resolution across (along a pixel row), ``dpi_y`` down; ``dpi_y`` None means
+    square pixels. The image stays on the input's own pixel grid (zones and normalised pages are
+    given on it); :func:`square_pixels` makes the square-pixel copy the extractor reads.
+    """
 
     source: str
     page: int
     image: np.ndarray = field(repr=False)
-    dpi: float
+    dpi_x: float
     bitonal: bool = False
+    dpi_y: float | None = None
     #: False when the file states no usable resolution (none, or one that makes the image a
     #: sheet of many feet, as phones write 72 dpi): ``dpi`` is then a working value taken from
     #: the image's size, and the page is read as a camera capture (see :mod:`layoutcheck.capture`).
@@ -101,15 +109,63 @@ class RasterPage:
 
     kind = "raster"
 
+    def __post_init__(self) -> None:
+        if self.dpi_y is None:
+            self.dpi_y = self.dpi_x
+
+    @property
+    def square(self) -> bool:
+        """Whether the pixels are square (the same resolution on both axes)."""
+        return self.dpi_x == self.dpi_y
+
+    @property
+    def dpi(self) -> float:
+        """One resolution for the page: the finer axis' (that of :func:`square_pixels`' image)."""
+        return float(max(self.dpi_x, self.dpi_y))
+
+    @property
+    def dpi_xy(self) -> tuple[float, float]:
+        """``(dpi_x, dpi_y)``."""
+        return float(self.dpi_x), float(self.dpi_y)
+
     @property
     def width(self) -> float:
         """Width in points."""
-        return self.image.shape[1] * POINTS_PER_INCH / self.dpi
+        return self.image.shape[1] * POINTS_PER_INCH / self.dpi_x
 
     @property
     def height(self) -> float:
         """Height in points."""
-        return self.image.shape[0] * POINTS_PER_INCH / self.dpi
+        return self.image.shape[0] * POINTS_PER_INCH / self.dpi_y
+
+
+def square_pixels(page: RasterPage) -> RasterPage:
+    """The page resampled to square pixels at its finer resolution (itself when already square).
+
+    A fax at 204 x 98 dpi becomes 204 x 204 dpi: each row is stretched down by area-aware
+    interpolation (OpenCV ``INTER_LINEAR`` when enlarging, ``INTER_AREA`` when reducing), so
+    the page's size in points is kept to a fraction of a pixel. A bitonal page stays bitonal
+    (thresholded at mid-grey after resampling).
+    """
+    import cv2
+
+    if page.square:
+        return page
+    dpi = page.dpi
+    h, w = page.image.shape[:2]
+    size = (max(1, int(round(w * dpi / page.dpi_x))), max(1, int(round(h * dpi / page.dpi_y))))
+    interp = cv2.INTER_LINEAR if size[0] * size[1] >= w * h else cv2.INTER_AREA
+    image = cv2.resize(page.image, size, interpolation=interp)
+    if page.bitonal:
+        image = np.where(image >= 128, 255, 0).astype(np.uint8)
+        if page.dpi_y < page.dpi_x:
+            # A thin rule crossing from one of the fax's tall rows to the next lies half in each
+            # over a long stretch, and the fax's threshold keeps a random half of its pixels:
+            # ink is closed along the rows over as many pixels as a row is taller than wide.
+            k = 2 * int(round(page.dpi_x / page.dpi_y)) + 1
+            image = cv2.erode(image, np.ones((1, k), np.uint8))
+            image = cv2.dilate(image, np.ones((1, k), np.uint8))
+    return RasterPage(page.source, page.page, image, dpi, page.bitonal, dpi_stated=page.dpi_stated)
 
 
 @dataclass
@@ -143,12 +199,13 @@ def where(source: str, page: int | None) -> str:
 
 
 def snap_dpi(dpi: float | None) -> float | None:
-    """Round a stated resolution to the usual value within 2 %; None when absent or below 72."""
+    """Round a stated resolution to the nearest usual value within 2 %; None when absent or
+    below 72. Each axis is snapped on its own (a fax's 98 dpi stays 98, not 100)."""
     if dpi is None or not np.isfinite(dpi) or dpi < 72:
         return None
-    for usual in USUAL_DPI:
-        if abs(dpi - usual) <= 0.02 * usual:
-            return float(usual)
+    usual = min(USUAL_DPI, key=lambda u: abs(dpi - u))
+    if abs(dpi - usual) <= 0.02 * usual:
+        return float(usual)
     return float(round(dpi))
 
 
@@ -320,18 +377,13 @@ def image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
         return PageError(source, n, f"{where(source, n)}: {w} x {h} pixels is over the limit of {limits.max_pixels:,} pixels; not decoded")
     if w < 16 or h < 16:
         return PageError(source, n, f"{where(source, n)}: {w} x {h} pixels is too small to be a page")
-    info_dpi = frame.info.get("dpi")
-    dpi = None
-    if info_dpi:
-        try:
-            dpi = snap_dpi(float(info_dpi[0]))
-        except (TypeError, ValueError, IndexError):
-            dpi = None
-    if dpi is not None and max(w, h) / dpi > MAX_SHEET_IN:
-        dpi = None  # a stated resolution that makes the image a sheet of many feet is no resolution
-    if dpi is None:
-        dpi = limits.dpi
-    stated = dpi is not None
+    stated = stated_dpi(frame)
+    dpi_x, dpi_y = (snap_dpi(v) for v in stated) if stated else (None, None)
+    if dpi_x is not None and dpi_y is not None and max(w / dpi_x, h / dpi_y) > MAX_SHEET_IN:
+        dpi_x = dpi_y = None  # a stated resolution that makes the image a sheet of many feet is no resolution
+    if dpi_x is None or dpi_y is None:
+        dpi_x = dpi_y = limits.dpi
+    known = dpi_x is not None
     try:
         # A frame of a multi-page file is copied as it is read (seeking on reuses the buffer):
         # the array below is that copy. EXIF orientation is applied only when the file has one.
@@ -357,9 +409,41 @@ def image_page(source: str, n: int, frame, limits: ReadLimits) -> Page:
         raise
     except Exception as exc:
         return PageError(source, n, f"{where(source, n)}: image data is damaged ({_one_line(exc)})")
-    if not stated:
-        dpi = working_dpi(arr.shape)
-    return RasterPage(source, n, arr, float(dpi), bitonal, stated)
+    if not known:
+        # No usable resolution: a camera capture, read at a working one (see :mod:`layoutcheck.capture`).
+        dpi_x = dpi_y = working_dpi(arr.shape)
+    if _exif_orientation(frame) in (5, 6, 7, 8):
+        dpi_x, dpi_y = dpi_y, dpi_x  # the image was turned a quarter: its rows were its columns
+    return RasterPage(source, n, arr, float(dpi_x), bitonal, float(dpi_y), dpi_stated=known)
+
+
+def stated_dpi(frame) -> tuple[float, float] | None:
+    """``(x, y)`` resolution an image file states, in dpi, or None.
+
+    Pillow gives both axes for TIFF (XResolution, YResolution, ResolutionUnit), PNG (pHYs) and
+    JPEG's JFIF header; for a JPEG whose JFIF header states only an aspect ratio, Pillow reads
+    the EXIF resolution of the x axis alone, so both EXIF tags (0x011A, 0x011B, unit 0x0128:
+    2 inch, 3 cm) are read here.
+    """
+    info = frame.info
+    exif_first = getattr(frame, "format", None) == "JPEG" and info.get("jfif_unit", 0) not in (1, 2)
+    if exif_first:
+        try:
+            tags = frame.getexif()
+            xr, yr = tags.get(0x011A), tags.get(0x011B)
+            if xr and yr:
+                k = 2.54 if tags.get(0x0128, 2) == 3 else 1.0
+                return float(xr) * k, float(yr) * k
+        except Exception:
+            pass
+        if "exif" in info:
+            return None  # Pillow's value would be its 72 dpi stand-in or one axis only
+    d = info.get("dpi")
+    try:
+        x, y = float(d[0]), float(d[1])
+    except (TypeError, ValueError, IndexError):
+        return None
+    return (x, y) if x > 0 and y > 0 else None
 
 
 #: Longest side, inches, of a sheet a usable stated resolution may describe (A3 is 16.5 in,
@@ -768,23 +852,70 @@ def _render_page(doc, source: str, n: int, limits: ReadLimits, dpi: float) -> Pa
                 page.close()
 
 
-def page_content_problem(image: np.ndarray) -> str | None:
+#: Ink less than this many grey levels darker than the paper is faint print (a copy of a copy,
+#: dropout colours): still read, but said in a finding. Measured in bench/bench_intake.py: black
+#: print scanned, blurred and JPEG-compressed keeps over 150 levels; faded print about 90.
+FAINT_CONTRAST = 110.0
+#: Least darkness, in grey levels below the paper, that can be ink (whatever the noise).
+MIN_INK_CONTRAST = 20.0
+
+
+@dataclass(frozen=True)
+class PageContrast:
+    """How a grey page's ink stands out from its paper (grey levels, 0 black .. 255 white)."""
+
+    #: Grey of the paper (the median pixel: a form inks a few percent of the sheet).
+    paper: float
+    #: Grey of the ink's dark core (10th percentile of the pixels counted as ink).
+    ink: float
+    #: Spread of the paper's grey (1.4826 x its median absolute deviation: a Gaussian's sigma).
+    noise: float
+    #: Share of the sheet darker than the paper by more than ``max(20, 5 x noise)`` levels.
+    ink_share: float
+    #: Share of the sheet below mid-grey (128).
+    dark_share: float
+
+    @property
+    def contrast(self) -> float:
+        """Paper minus ink, grey levels."""
+        return self.paper - self.ink
+
+
+def page_contrast(image: np.ndarray) -> PageContrast:
+    """The contrast structure of a grey page, from an even sample of about 250,000 pixels.
+
+    Ink is what is darker than the paper by more than the paper's own noise can explain (five
+    sigmas, at least :data:`MIN_INK_CONTRAST` levels), whatever the absolute grey: faded print
+    and light dropout colours count as ink, a blank sheet with noise does not.
+    """
+    step = max(1, int(np.sqrt(image.size / 250_000)))
+    sample = image[::step, ::step].astype(np.float32).ravel()
+    paper = float(np.median(sample))
+    noise = 1.4826 * float(np.median(np.abs(sample - paper)))
+    ink_mask = sample < paper - max(MIN_INK_CONTRAST, 5.0 * noise)
+    ink_share = float(ink_mask.mean())
+    ink = float(np.percentile(sample[ink_mask], 10)) if ink_mask.any() else paper
+    return PageContrast(paper, ink, noise, ink_share, float((sample < 128).mean()))
+
+
+def page_content_problem(image: np.ndarray, contrast: PageContrast | None = None) -> str | None:
     """Why a grey page image cannot hold a form, or None: blank paper or solid black.
 
-    Dark means below mid-grey (128). A printed form inks a few percent of the sheet (common
-    practice: office forms run at 2-15 % coverage); under 0.05 % is a blank sheet with specks,
-    over 85 % is a black page (a scan with the lid open, or an inverted image).
+    Blank is judged from the page's contrast (:func:`page_contrast`), not from a fixed grey: a
+    printed form inks a few percent of the sheet (common practice: office forms run at 2-15 %
+    coverage), so a sheet with ink over under 0.05 % of it is blank paper with specks, however
+    light or dark its print. Over 85 % below mid-grey is a black page (a scan with the lid open,
+    or an inverted image).
     """
     if image.size == 0:
         return "page image is empty"
-    step = max(1, int(np.sqrt(image.size / 250_000)))  # an even sample of about 250,000 pixels
-    dark = float((image[::step, ::step] < 128).mean())
-    if dark < 0.0005:
-        return f"blank page ({dark:.2%} of the sheet is dark); no form on it"
-    if dark > 0.85:
-        return f"page is almost all black ({dark:.0%} of the sheet is dark); no form can be seen"
+    c = page_contrast(image) if contrast is None else contrast
+    if c.dark_share > 0.85:
+        return f"page is almost all black ({c.dark_share:.0%} of the sheet is dark); no form can be seen"
+    if c.ink_share < 0.0005:
+        return (f"blank page ({c.ink_share:.2%} of the sheet is darker than the paper by more than "
+                f"{max(MIN_INK_CONTRAST, 5.0 * c.noise):.0f} grey levels); no form on it")
     return None
-
 
 
 def render_page_image(source: str, page: int, dpi: float, limits: ReadLimits = ReadLimits()) -> np.ndarray:
@@ -798,7 +929,7 @@ def render_page_image(source: str, page: int, dpi: float, limits: ReadLimits = R
         out = next((pg for pg in read_pages(source, limits, {page})), PageError(source, page, f"{where(source, page)}: no such page"))
     if isinstance(out, PageError):
         raise InputError(out.message)
-    return out.image
+    return square_pixels(out).image
 
 
 def read_colour(path: str | os.PathLike, page: int) -> np.ndarray | None:

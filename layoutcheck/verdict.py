@@ -11,7 +11,7 @@ from .consensus import Match
 
 
 #: Most severe first; a page's verdict is the most severe of its findings.
-VERDICTS = ("error", "unrecognised", "mismatched", "retake", "rescaled", "skewed", "shifted", "pass")
+VERDICTS = ("error", "unrecognised", "mismatched", "incomplete", "retake", "rescaled", "skewed", "shifted", "pass")
 SEVERITY = {v: i for i, v in enumerate(VERDICTS)}
 
 
@@ -47,6 +47,14 @@ class Tolerances:
     #: Most the perspective correction of a camera capture may enlarge one part of the form
     #: relative to another (a photo taken too obliquely).
     max_stretch: float = 2.0
+    #: Millimetres of the form that may lie beyond an edge of the image before the page is
+    #: "incomplete" (common practice: as much as an element may sit from its place; beyond it a
+    #: box loses its side and a field's text may be cut).
+    max_cut_mm: float = 2.0
+    #: Millimetres the content may bend away from one flat pose (paper not flat on the glass,
+    #: a curled sheet) before the bend is a finding of its own; each element is judged against
+    #: the bend either way (common practice: as much as an element may sit from its place).
+    max_warp_mm: float = 2.0
 
     def __post_init__(self) -> None:
         for f in fields(self):
@@ -124,13 +132,92 @@ def too_small(readability, tolerances: Tolerances) -> bool:
     return readability is not None and readability.worst_dpi < tolerances.min_dpi
 
 
+EDGES = ("top", "bottom", "left", "right")
+
+
+@dataclass(frozen=True)
+class CutOff:
+    """What of the form lies outside the captured image, under the page's pose."""
+
+    #: Edge -> millimetres of the form beyond it (only the edges it crosses).
+    beyond_mm: dict
+    #: Share of the form's area (the box around its elements) that is not on the image.
+    share: float
+    #: Names of the sections and zones not wholly on the image.
+    sections: tuple[str, ...]
+    zones: tuple[str, ...]
+
+    @property
+    def worst_mm(self) -> float:
+        return max(self.beyond_mm.values(), default=0.0)
+
+
+def beyond_edges(frames: np.ndarray, pose, input_size: tuple[float, float]) -> np.ndarray:
+    """(N, 4) points of each frame beyond the image's top, bottom, left and right edges."""
+    x0, t, x1, b = (frames[:, k] for k in range(4))
+    corners = np.stack([np.stack([x0, t], 1), np.stack([x1, t], 1), np.stack([x1, b], 1), np.stack([x0, b], 1)], 1)
+    mapped = pose.apply(corners.reshape(-1, 2)).reshape(-1, 4, 2)
+    w, h = input_size
+    return np.stack([-mapped[..., 1].min(1), mapped[..., 1].max(1) - h,
+                     -mapped[..., 0].min(1), mapped[..., 0].max(1) - w], 1).clip(min=0.0)
+
+
+def cut_off(match: Match, input_size: tuple[float, float], tolerances: Tolerances, zones=()) -> CutOff | None:
+    """What of the form is outside the image (a feeder cut the page), or None when it is all there.
+
+    The template's elements are mapped by the pose (through :meth:`Pose.apply` only, so any kind
+    of pose serves); the form is incomplete when some element lies more than
+    ``tolerances.max_cut_mm`` beyond an edge. The share missing is measured on a 64 x 64 grid over
+    the box around the form's elements.
+    """
+    if match.pose is None or not match.elements:
+        return None
+    from .elements import MM_PER_POINT
+
+    frames = np.array([e.frame for e in match.elements], float)
+    beyond = beyond_edges(frames, match.pose, input_size) * MM_PER_POINT
+    worst = beyond.max(0)
+    if worst.max() <= tolerances.max_cut_mm:
+        return None
+    lo, hi = frames[:, :2].min(0), frames[:, 2:].max(0)
+    gx, gy = np.meshgrid(np.linspace(lo[0], hi[0], 64), np.linspace(lo[1], hi[1], 64))
+    pts = match.pose.apply(np.stack([gx.ravel(), gy.ravel()], 1))
+    w, h = input_size
+    share = float(((pts[:, 0] < 0) | (pts[:, 0] > w) | (pts[:, 1] < 0) | (pts[:, 1] > h)).mean())
+
+    def outside(items) -> tuple[str, ...]:
+        items = list(items)
+        if not items:
+            return ()
+        far = beyond_edges(np.array([i.frame for i in items], float), match.pose, input_size).max(1) * MM_PER_POINT
+        return tuple(i.name for i, d in zip(items, far) if d > tolerances.max_cut_mm)
+
+    return CutOff({e: float(v) for e, v in zip(EDGES, worst) if v > tolerances.max_cut_mm}, share,
+                  outside(match.sections), outside(zones))
+
+
+def cut_off_words(cut: CutOff) -> str:
+    """'Part of the form is not on the image: ...' for a :class:`CutOff`."""
+    edges = sorted(cut.beyond_mm.items(), key=lambda kv: -kv[1])
+    where_ = " and ".join(f"{mm:.1f} mm beyond the {edge} edge" for edge, mm in edges)
+    parts = [f"Part of the form is not on the image (cut off?): {cut.share:.0%} of it is missing, {where_}"]
+    if cut.sections:
+        parts.append("sections outside: " + ", ".join(f"'{n}'" for n in cut.sections))
+    if cut.zones:
+        shown = ", ".join(f"'{n}'" for n in cut.zones[:12])
+        more = f" and {len(cut.zones) - 12} more" if len(cut.zones) > 12 else ""
+        parts.append(f"zones outside: {shown}{more}")
+    return "; ".join(parts)
+
+
 def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, float],
-          input_size: tuple[float, float], camera: bool = False, readability=None) -> tuple[str, list[Finding]]:
+          input_size: tuple[float, float], zones=(), camera: bool = False, readability=None) -> tuple[str, list[Finding]]:
     """Verdict and findings of a matched page, most severe finding first.
 
-    A camera capture (``camera``) is always turned and scaled: its turn, scale and shift are
-    not judged. Its ``readability`` (:class:`layoutcheck.capture.Readability`) is: too small or
-    too oblique a photo must be taken again (verdict ``retake``).
+    ``zones`` (the template page's, each with ``name`` and ``frame``) are named when the page is
+    incomplete. A camera capture (``camera``) is always turned and scaled: its turn, scale and
+    shift are not judged. Its ``readability`` (:class:`layoutcheck.capture.Readability`) is: too
+    small or too oblique a photo must be taken again (verdict ``retake``).
     """
     findings: list[Finding] = []
     if match.pose is None or match.support < tolerances.min_support:
@@ -166,6 +253,15 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
             val = e.size_ratio
         findings.append(Finding("mismatched", msg, element=e.id, value=val,
                                 limit=tolerances.element_size_pct if e.status == "resized" else tolerances.element_tolerance_mm))
+    warp = match.field.largest_mm if match.field is not None else 0.0
+    if warp > tolerances.max_warp_mm:
+        findings.append(Finding("shifted", f"Paper not flat: parts of the content bend up to {warp:.1f} mm away from "
+                                f"one flat placement (limit {tolerances.max_warp_mm:g} mm); each element was judged "
+                                "against the bend", value=warp, limit=tolerances.max_warp_mm))
+    cut = cut_off(match, input_size, tolerances, zones)
+    if cut is not None:
+        findings.append(Finding("incomplete", cut_off_words(cut), element=",".join(cut.beyond_mm),
+                                value=cut.worst_mm, limit=tolerances.max_cut_mm))
     if camera:
         if unclear:
             shown = ", ".join(unclear[:3]) + (f" and {len(unclear) - 3} more" if len(unclear) > 3 else "")
@@ -198,7 +294,9 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
                                 value=rot, limit=tolerances.max_skew_deg))
     shift = match.pose.shift_mm(template_size, input_size)
     dist = float(np.hypot(*shift))
-    if dist > tolerances.max_shift_mm:
+    # On a cut-off page the content is off centre because the image is short, not because the
+    # page was placed askew: the shift is not judged.
+    if dist > tolerances.max_shift_mm and cut is None:
         findings.append(Finding("shifted", f"Content sits {direction_words(*shift)} off centre on the sheet "
                                 f"(limit {tolerances.max_shift_mm:g} mm)", value=dist, limit=tolerances.max_shift_mm))
     findings.sort(key=lambda f: SEVERITY[f.verdict])

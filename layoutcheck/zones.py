@@ -226,7 +226,8 @@ def zone_quad(frame: Sequence[float], pose_matrix: np.ndarray) -> np.ndarray:
 
 
 def zone_records(zones: Sequence[Zone], pose_matrix: np.ndarray | None, statuses: dict[str, str],
-                 judged: set[str], dpi: float | None, image_size: tuple[int, int] | None = None) -> list[dict]:
+                 judged: set[str], dpi: float | tuple[float, float] | None,
+                 image_size: tuple[int, int] | None = None) -> list[dict]:
     """The ``zones`` part of a record.
 
     Parameters
@@ -239,15 +240,18 @@ def zone_records(zones: Sequence[Zone], pose_matrix: np.ndarray | None, statuses
         Element id -> status (``ok``, ``moved``, ``resized``, ``missing``) from the match.
     judged : set of str
         Element ids that were judged on this input (a field on a scan is not).
-    dpi : float or None
-        Input resolution: corners in pixels (``p * dpi / 72``, continuous, pixel ``(c, r)``
-        covering ``[c, c+1) x [r, r+1)``); ``None`` gives points and ``unit: "pt"``.
+    dpi : float, (dpi_x, dpi_y) or None
+        Input resolution, one or per axis: corners in pixels (``p * dpi / 72``, continuous,
+        pixel ``(c, r)`` covering ``[c, c+1) x [r, r+1)``); ``None`` gives points and
+        ``unit: "pt"``. The record's ``dpi`` is one number for square pixels, else the pair.
     image_size : (width, height), optional
         Input size in pixels (or points), to clip the crop box.
     """
     if pose_matrix is None:
         return []
-    factor = 1.0 if dpi is None else dpi / POINTS_PER_INCH
+    if dpi is not None and np.ndim(dpi) == 1:
+        dpi = float(dpi[0]) if dpi[0] == dpi[1] else [float(dpi[0]), float(dpi[1])]
+    factor = 1.0 if dpi is None else np.asarray(dpi, dtype=float) / POINTS_PER_INCH
     unit = "pt" if dpi is None else "px"
     out = []
     for z in zones:
@@ -287,7 +291,7 @@ def _worst(statuses: Iterable[str]) -> str:
     return max(statuses, key=lambda s: order.get(s, 0))
 
 
-def zones_for_match(tp: TemplatePage, match, dpi: float | None, image_size: tuple[int, int] | None = None) -> list[dict]:
+def zones_for_match(tp: TemplatePage, match, dpi: float | tuple[float, float] | None, image_size: tuple[int, int] | None = None) -> list[dict]:
     """``zone_records`` for a :class:`~layoutcheck.consensus.Match` against template page ``tp``."""
     if match is None or match.pose is None:
         return []

@@ -144,7 +144,7 @@ def test_section_moved_as_one_is_reported_once(tmp_path, vector_template):
 def test_record_has_exactly_the_contract_fields(tmp_path, vector_template):
     rec = check(draw_form(tmp_path / "c.pdf"), vector_template)
     assert set(rec) == {"source", "page", "template", "template_page", "verdict", "findings", "pose", "support",
-                        "offending", "sections", "elapsed_ms", "error", "capture", "effective_dpi"}
+                        "offending", "sections", "elapsed_ms", "error", "capture", "effective_dpi", "warp_mm"}
     assert set(rec["pose"]) == {"rotation_deg", "scale", "scale_x", "scale_y", "shift_mm", "matrix", "model", "projective"}
     assert rec["page"] == 1 and rec["template"] == "T-7" and rec["error"] is None
     assert rec["capture"] == "scan" and rec["effective_dpi"] is None

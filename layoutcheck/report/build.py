@@ -39,6 +39,7 @@ VERDICT_TITLES = {
     "error": "Could not be checked",
     "unrecognised": "Not recognised as a known form",
     "mismatched": "Layout differs from the form",
+    "incomplete": "Part of the form is not on the image",
     "retake": "Photo to be taken again",
     "rescaled": "Printed at the wrong size",
     "skewed": "Turned on the sheet",
@@ -53,6 +54,8 @@ VERDICT_ADVICE = {
                     "old version no template was learned for.",
     "mismatched": "Compare the marked elements with the form. If this version of the form is "
                   "valid, learn a template for it; otherwise send the page back.",
+    "incomplete": "Scan the page again whole: part of it (named below) was cut off, and OCR cannot "
+                  "read the fields there.",
     "retake": "The photo shows the form too small or too obliquely to be read reliably. Ask for a "
               "new photo taken from straight above, closer, or a scan.",
     "rescaled": "The page was printed or scanned at another size. Reprint at 100 % (no fitting "
@@ -218,7 +221,7 @@ def page_picture(path: str, page: int, dpi: float, kind: str | None = None) -> t
     born-digital PDF page is rendered at ``dpi``. ``kind="vector"``, when the record already
     says the page is born-digital, skips reading the page to find out (the costly part).
     """
-    from ..sources import InputError, PageError, RasterPage, ReadLimits, read_pages, render_page_image
+    from ..sources import InputError, PageError, RasterPage, ReadLimits, read_pages, render_page_image, square_pixels
 
     if kind == "vector":
         return render_page_image(path, page, dpi), dpi, kind
@@ -232,6 +235,7 @@ def page_picture(path: str, page: int, dpi: float, kind: str | None = None) -> t
             if isinstance(pg, PageError):
                 raise InputError(pg.message)
             if isinstance(pg, RasterPage):
+                pg = square_pixels(pg)  # a fax's tall pixels shown square
                 kind, image, native = "raster", pg.image, float(pg.dpi)
             else:
                 kind = "vector"

@@ -49,7 +49,7 @@ import cv2
 import numpy as np
 
 from ...elements import POINTS_PER_INCH, Element, PageElements, assign_ids
-from ...sources import RasterPage
+from ...sources import RasterPage, square_pixels
 from .binarise import _off_border, background_spread, binarise, otsu_threshold, sauvola_mask
 from .boxes import _find_boxes
 from .common import _components, _Frame, _reduce, cv_matrix, px
@@ -99,7 +99,12 @@ def extract_raster(page: RasterPage, settings: RasterSettings = RasterSettings()
 
 
 def extract_raster_detail(page: RasterPage, settings: RasterSettings = RasterSettings()) -> tuple[list[Element], RasterDetail]:
-    """:func:`extract_raster` with its intermediate results (elements without final ids)."""
+    """:func:`extract_raster` with its intermediate results (elements without final ids).
+
+    A page with pixels that are not square (a fax) is read from its square-pixel copy
+    (:func:`~layoutcheck.sources.square_pixels`): every stage below works in one resolution.
+    """
+    page = square_pixels(page)
     grey = np.ascontiguousarray(page.image, dtype=np.uint8)
     if grey.ndim != 2:
         raise ValueError(f"{page.source} page {page.page}: expected a grey image, got shape {grey.shape}")

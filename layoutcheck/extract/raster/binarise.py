@@ -114,11 +114,14 @@ def binarise(image: np.ndarray, dpi: float = 300.0, settings: RasterSettings = R
     return mask, "sauvola"
 
 
-def _off_border(mask: np.ndarray, border: int) -> np.ndarray:
-    """The mask without the components that reach within ``border`` px of the image's edge.
+def _off_border(mask: np.ndarray, border: int, hug: int | None = None) -> np.ndarray:
+    """The mask without the components that lie along the image's edge.
 
-    Scanner lids, edge shadows and the dark rim of a turned sheet all touch the border; printed
-    forms keep a margin (common practice: at least 5 mm for office printers).
+    Scanner lids, edge shadows and the dark rim of a turned sheet touch the border and run along
+    it; printed forms keep a margin (common practice: at least 5 mm for office printers). A
+    component that reaches within ``border`` px of the edge is dropped when at least half of it
+    lies within ``hug`` px of the edge (default ``8 * border``): the form on a page cut off by
+    the feeder also touches the edge, with its rules, but lies mostly inside.
     """
     if not (mask[:border].any() or mask[-border:].any() or mask[:, :border].any() or mask[:, -border:].any()):
         return mask  # no ink near the edge: nothing to drop
@@ -127,9 +130,17 @@ def _off_border(mask: np.ndarray, border: int) -> np.ndarray:
         return mask
     edge = np.concatenate([labels[:border].ravel(), labels[-border:].ravel(), labels[:, :border].ravel(),
                            labels[:, -border:].ravel()])
-    drop = np.zeros(n, bool)
-    drop[np.unique(edge)] = True
-    drop[0] = False
+    touching = np.zeros(n, bool)
+    touching[np.unique(edge)] = True
+    touching[0] = False
+    if not touching.any():
+        return mask
+    hug = 8 * border if hug is None else hug
+    h, w = labels.shape
+    inner = labels[hug:h - hug, hug:w - hug]
+    total = np.bincount(labels.ravel(), minlength=n)
+    inside = np.bincount(inner.ravel(), minlength=n)
+    drop = touching & (total - inside >= 0.5 * total)
     if not drop.any():
         return mask
     return mask & ~drop[labels]

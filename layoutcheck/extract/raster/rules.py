@@ -95,6 +95,46 @@ def _pieces(opened: np.ndarray, horizontal: bool, min_len: float, max_width: flo
         lo, ext, pos0, thick = st[:, 1], st[:, 3], st[:, 0], st[:, 2]
     pos = pos0 + thick / 2.0
     lo, hi, thick = lo.astype(float), (lo + ext).astype(float), thick.astype(float)
+    # A rule on paper that does not lie flat bends: its piece is a staircase across more rows
+    # than its stroke is thick. It is cut into pieces straight to a pixel or two, each fitted
+    # as a rule of its own (the judge puts a rule's pieces back together by the span they cover).
+    bent = np.flatnonzero((ext >= 2 * long_len) & (thick > 3) & (thick <= 4 * max_width))
+    extra_rows, extra_boxes, drop = [], [], []
+    for i in bent:
+        x, y, w, h = st[i]
+        own = np.zeros((h, w), np.uint8)
+        cv2.drawContours(own, [contours[i]], -1, 1, thickness=-1, offset=(-int(x), -int(y)))
+        sub = (own & opened[y:y + h, x:x + w]).astype(bool)
+        if not horizontal:
+            sub = sub.T
+        cols = sub.any(0)
+        count = sub.sum(0)
+        if not cols.any() or np.median(count[cols]) > max_width:
+            continue
+        idx = np.arange(sub.shape[0], dtype=float)[:, None]
+        first = np.where(cols, np.argmax(sub, 0), 0)
+        last = np.where(cols, sub.shape[0] - 1 - np.argmax(sub[::-1], 0), 0)
+        if ((last - first + 1 > count + 1) & cols).mean() > 0.05:
+            continue  # two runs in a column: other ink along the rule, not a bend
+        centre = np.where(cols, (sub * idx).sum(0) / np.maximum(count, 1), np.nan)
+        drift = np.nanmax(centre) - np.nanmin(centre)
+        if drift <= 2.0:
+            continue
+        n_chunks = int(min(np.ceil(drift / 1.5), max(1, ext[i] // long_len)))
+        if n_chunks < 2:
+            continue
+        edges = np.linspace(0, sub.shape[1], n_chunks + 1).astype(int)
+        base = float(y if horizontal else x)
+        start = float(x if horizontal else y)
+        for a, b in zip(edges[:-1], edges[1:]):
+            c = centre[a:b]
+            if not np.isfinite(c).any():
+                continue
+            stroke = float(np.median(count[a:b][cols[a:b]]))
+            spread = float(np.nanmax(c) - np.nanmin(c))
+            extra_rows.append([base + float(np.nanmean(c)) + 0.5, start + a, start + b, stroke + spread])
+            extra_boxes.append([x + a, y, b - a, h] if horizontal else [x, y + a, w, b - a])
+        drop.append(i)
     # A rule joined by other ink along it (a stamp's edge crossing at a shallow angle, a stroke
     # of handwriting lying on it) leaves a piece thicker than the rule: the rule is the band of
     # rows (columns) that holds most of the piece's length. A long rule staircases across a few
@@ -102,7 +142,7 @@ def _pieces(opened: np.ndarray, horizontal: bool, min_len: float, max_width: flo
     # of the fullest; a short piece's rows are all at least ``min_len`` long, so half. Only
     # pieces of rule length (``long_len``): a checkbox's side joined by a stamp's edge is shorter
     # than the edge, whose band would win.
-    for i in np.flatnonzero((ext >= long_len) & (thick > 3)):
+    for i in np.setdiff1d(np.flatnonzero((ext >= long_len) & (thick > 3)), drop):
         x, y, w, h = st[i]
         own = np.zeros((h, w), np.uint8)
         cv2.drawContours(own, [contours[i]], -1, 1, thickness=-1, offset=(-int(x), -int(y)))
@@ -115,9 +155,15 @@ def _pieces(opened: np.ndarray, horizontal: bool, min_len: float, max_width: flo
         a = top - int(np.argmin(strong[top::-1])) + 1 if not strong[:top + 1].all() else 0
         b = top + int(np.argmin(strong[top:])) if not strong[top:].all() else len(prof)
         pos[i], thick[i] = (y if horizontal else x) + (a + b) / 2.0, float(b - a)
-    keep = (ext >= min_len) & (thick <= max_width)
-    rows = np.stack([pos, lo, hi, thick], 1)[keep]
-    return rows, st[keep, :4]
+    rows = np.stack([pos, lo, hi, thick], 1)
+    boxes = st[:, :4]
+    if drop:
+        keep_rows = np.ones(len(rows), bool)
+        keep_rows[drop] = False
+        rows = np.vstack([rows[keep_rows], np.array(extra_rows, float).reshape(-1, 4)])
+        boxes = np.vstack([boxes[keep_rows], np.array(extra_boxes, np.int64).reshape(-1, 4)])
+    keep = (rows[:, 2] - rows[:, 1] >= min_len) & (rows[:, 3] <= max_width)
+    return rows[keep], boxes[keep]
 
 
 def _runs(up_bin: np.ndarray, horizontal: bool, min_len: int, long_len: int, max_width: float):
@@ -140,7 +186,11 @@ def _runs(up_bin: np.ndarray, horizontal: bool, min_len: int, long_len: int, max
     def kernel(n):
         return cv2.getStructuringElement(cv2.MORPH_RECT, (n, 1) if horizontal else (1, n))
 
-    long_open = cv2.morphologyEx(closed, cv2.MORPH_OPEN, kernel(long_len))
+    # Long runs are looked for a pixel either side across: a rule on paper that does not lie
+    # flat bends by a few pixels over its length, and its staircase holds fewer than
+    # ``long_len`` pixels in any one row.
+    across = cv2.getStructuringElement(cv2.MORPH_RECT, (1, 3) if horizontal else (3, 1))
+    long_open = cv2.morphologyEx(cv2.dilate(closed, across), cv2.MORPH_OPEN, kernel(long_len))
     short_open = cv2.morphologyEx(closed, cv2.MORPH_OPEN, kernel(min_len))
     short_open = cv2.subtract(short_open, cv2.dilate(long_open, np.ones((3, 3), np.uint8)))  # 0/1: and-not
     # The two sets of runs are a pixel apart at least, so one labelling serves both.
@@ -421,3 +471,72 @@ def _drop_border(seg: np.ndarray, wid: np.ndarray, page: RasterPage, border_mm: 
     xs, ys = seg[:, [0, 2]], seg[:, [1, 3]]
     near = ((xs <= b).all(1) | (xs >= page.width - b).all(1) | (ys <= b).all(1) | (ys >= page.height - b).all(1))
     return seg[~near], wid[~near]
+
+
+def rule_span(mask: np.ndarray, p0, p1, width: float, probe: float, reach: float | None = None) -> tuple[float, float, bool, bool]:
+    """The printed span of one rule on an ink mask, and whether other ink touches each end.
+
+    The rule's line from ``p0`` to ``p1`` (continuous pixel coordinates, ``(x, y)``) is walked
+    pixel by pixel, on and beyond both ends (up to ``reach`` pixels, default ``probe``). At each
+    step the mask is read on the line (the rule's own ink) and at ``width / 2 + probe`` pixels
+    either side of it (paper, where the rule stands alone). The printed span is the longest run
+    of steps with ink on the line and paper on both sides; an end is *touched* when, within
+    ``probe`` pixels of where the span stops, there is ink beside the line (a box side it runs
+    into, a crossing rule, handwriting on it) or the line's ink goes on.
+
+    Parameters
+    ----------
+    mask : (H, W) bool
+        Ink.
+    p0, p1 : (x, y)
+        Ends of the rule as measured, pixels.
+    width : float
+        Stroke width, pixels.
+    probe : float
+        How far beside the stroke, and beyond each end, other ink is looked for, pixels.
+
+    Returns
+    -------
+    t0, t1 : float
+        The printed span as fractions of the way from ``p0`` to ``p1`` (may be below 0 or above
+        1 when the rule's own clean ink runs on past the measured ends).
+    touched0, touched1 : bool
+        Whether other ink touches the span's end towards ``p0`` and towards ``p1``.
+    """
+    p0, p1 = np.asarray(p0, float), np.asarray(p1, float)
+    length = float(np.hypot(*(p1 - p0)))
+    if length < 1.0:
+        return 0.0, 1.0, False, False
+    reach = probe if reach is None else reach
+    u = (p1 - p0) / length
+    n = np.array([-u[1], u[0]])
+    s = np.arange(-reach, length + reach + 0.5, 1.0)
+    base = p0 + s[:, None] * u
+    off = width / 2.0 + probe
+    h, w = mask.shape
+
+    def ink(pts: np.ndarray) -> np.ndarray:
+        c = np.floor(pts).astype(int)
+        inside = (c[:, 0] >= 0) & (c[:, 0] < w) & (c[:, 1] >= 0) & (c[:, 1] < h)
+        out = np.zeros(len(pts), bool)
+        out[inside] = mask[c[inside, 1], c[inside, 0]]
+        return out
+
+    on = ink(base)
+    beside = ink(base + off * n) | ink(base - off * n)
+    clean = on & ~beside
+    if not clean.any():
+        return 0.0, 1.0, True, True
+    # The longest run of clean steps is the rule standing alone.
+    edges = np.diff(np.concatenate([[0], clean.view(np.int8), [0]]))
+    starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+    k = int(np.argmax(stops - starts))
+    a, b = int(starts[k]), int(stops[k]) - 1
+    near = int(np.ceil(probe))
+
+    def touched(i: int, step: int) -> bool:
+        j = np.arange(i + step, i + step * (near + 1), step)
+        j = j[(j >= 0) & (j < len(s))]
+        return bool(beside[j].any() or (on[j].any() and len(j) and on[j[0]]))
+
+    return float(s[a] / length), float(s[b] / length), touched(a, -1), touched(b, 1)

@@ -1,0 +1,371 @@
+"""Imperfect scans from real intake: fax resolutions, faint print, paper not flat, cut-off pages,
+bold headings, rules that run into boxes; and the nuisances that must keep working.
+
+Outside references are named beside each check.
+"""
+
+from __future__ import annotations
+
+import io
+
+import numpy as np
+import pytest
+from PIL import Image
+
+from conftest import MM, draw_form
+from layoutcheck.check import CheckSettings, check_file, check_page, learn
+from layoutcheck.consensus import free_rule_ends, judge_rules, solve, FrameArrays
+from layoutcheck.elements import Element
+from layoutcheck.extract.raster import binarise, extract_raster, otsu_threshold
+from layoutcheck.extract.raster.rules import rule_span
+from layoutcheck.field import fit_field
+from layoutcheck.pose import Pose
+from layoutcheck.simulate import save_scan, simulate_scan
+from layoutcheck.sources import RasterPage, read_pages, snap_dpi, square_pixels
+from layoutcheck.verdict import SEVERITY, VERDICTS
+
+# ISO 216: A4 is 210 x 297 mm; 1 in = 25.4 mm (exact). At 204 x 98 dpi (a standard-resolution
+# fax, common practice): 210 / 25.4 * 204 = 1686.6 -> 1687 and 297 / 25.4 * 98 = 1145.9 -> 1146.
+A4_FAX_PX = (1146, 1687)
+
+
+@pytest.fixture(scope="module")
+def reference(tmp_path_factory):
+    return str(draw_form(tmp_path_factory.mktemp("intake") / "reference.pdf"))
+
+
+@pytest.fixture(scope="module")
+def template(reference):
+    return learn([reference], name="T-7")
+
+
+# -- resolution per axis --------------------------------------------------------------------------
+def _fax_image() -> Image.Image:
+    rng = np.random.default_rng(1)
+    a = np.full(A4_FAX_PX, 255, np.uint8)
+    a[rng.random(A4_FAX_PX) < 0.01] = 0
+    return Image.fromarray(a)
+
+
+@pytest.mark.parametrize("fmt", ["tiff-g4", "png", "jpeg-jfif", "jpeg-exif"])
+def test_resolution_is_read_per_axis(tmp_path, fmt):
+    im = _fax_image()
+    path = tmp_path / f"fax.{fmt.split('-')[0]}"
+    if fmt == "tiff-g4":
+        im.convert("1").save(path, dpi=(204, 98), compression="group4")
+    elif fmt == "png":
+        im.save(path, dpi=(204, 98))  # written as pHYs in pixels per metre: 8031 x 3858
+    elif fmt == "jpeg-jfif":
+        im.save(path, dpi=(204, 98), quality=90)
+    else:
+        # EXIF only (no JFIF density): XResolution 0x011A, YResolution 0x011B, unit 0x0128 = 2
+        # (inch), from the EXIF 2.3 standard's TIFF tags.
+        exif = Image.Exif()
+        exif[0x011A], exif[0x011B], exif[0x0128] = 204.0, 98.0, 2
+        buf = io.BytesIO()
+        im.save(buf, format="JPEG", quality=90, exif=exif.tobytes())
+        data = bytearray(buf.getvalue())
+        path.write_bytes(bytes(data))
+    [page] = list(read_pages(path))
+    assert isinstance(page, RasterPage), page
+    assert page.dpi_xy == (204.0, 98.0)
+    assert page.image.shape == A4_FAX_PX
+    # The page is A4 in points (1/72 in): 595.28 x 841.89, to within one pixel on each axis.
+    assert page.width == pytest.approx(210 * MM, abs=72 / 204)
+    assert page.height == pytest.approx(297 * MM, abs=72 / 98)
+    assert page.dpi == 204.0  # the finer axis, that of the square-pixel copy
+
+
+def test_usual_resolutions_snap_per_axis():
+    # Fax resolutions (ITU-T T.4, common practice): 204 x 98, 204 x 196 and the metric
+    # 200 x 100 / 200 x 200; each axis snaps to its nearest usual value.
+    assert [snap_dpi(v) for v in (97.9, 98.6, 100.4, 195.0, 203.2, 199.0, 299.5)] == [98, 98, 100, 196, 204, 200, 300]
+    assert snap_dpi(60.0) is None
+
+
+def test_square_pixels_keeps_the_page_size():
+    page = RasterPage("fax.tif", 1, np.asarray(_fax_image()), 204.0, True, 98.0)
+    sq = square_pixels(page)
+    # ISO 216 height at 204 dpi: 297 / 25.4 * 204 = 2385.4 pixels.
+    assert sq.square and sq.dpi == 204.0 and sq.image.shape[1] == 1687
+    assert abs(sq.image.shape[0] - 297 / 25.4 * 204) < 1.0
+    assert set(np.unique(sq.image).tolist()) <= {0, 255}  # a bitonal page stays bitonal
+    assert square_pixels(sq) is sq
+
+
+def test_standard_fax_is_checked_on_its_own_grid(tmp_path, reference, template):
+    scan = simulate_scan(reference, dpi=(204, 98), rotation_deg=0.3, bitonal_threshold=128, seed=3)
+    path = save_scan(scan, tmp_path / "fax.tif")
+    [rec] = list(check_file(path, [template], CheckSettings(zones=True)))
+    assert rec["verdict"] == "pass", rec["findings"]
+    pose = rec["pose"]
+    # Scale per axis within 0.3 % of the truth (the issue's target for faxes).
+    assert abs(pose["scale_x"] / scan.pose.scale_x - 1) <= 0.003
+    assert abs(pose["scale_y"] / scan.pose.scale_y - 1) <= 0.003
+    # Zones are in the fax's own pixels: x at 204 / 72 px per point, y at 98 / 72.
+    zone = next(z for z in rec["zones"] if z["name"].lower().startswith("call"))
+    expect = scan.pose.apply(np.array([zone["frame_pt"][:2]], float))[0] * np.array([204, 98]) / 72.0
+    assert zone["dpi"] == [204.0, 98.0]
+    assert np.allclose(zone["quad"][0], expect, atol=1.5)
+
+
+def test_normalised_fax_page_is_square_and_in_place():
+    from layoutcheck.normalise import normalise_image
+
+    # A 20 x 20 pt black square at (100, 200) pt on a 204 x 98 dpi page (1 pt = 1/72 in).
+    img = np.full(A4_FAX_PX, 255, np.uint8)
+    c0, c1 = round(100 * 204 / 72), round(120 * 204 / 72)
+    r0, r1 = round(200 * 98 / 72), round(220 * 98 / 72)
+    img[r0:r1, c0:c1] = 0
+    norm = normalise_image(img, (204.0, 98.0), Pose.identity(), (210 * MM, 297 * MM), bitonal=True)
+    assert norm.dpi == 204.0 and norm.image.shape == (2385, 1687)  # ISO 216 A4 at 204 dpi
+    rows, cols = np.nonzero(norm.image < 128)
+    k = 204 / 72
+    assert abs(cols.min() - 100 * k) <= 1.5 and abs(cols.max() + 1 - 120 * k) <= 1.5
+    assert abs(rows.min() - 200 * k) <= 2.5 and abs(rows.max() + 1 - 220 * k) <= 2.5
+
+
+# -- faint forms ----------------------------------------------------------------------------------
+def test_otsu_on_a_faded_page_agrees_with_scikit_image(reference):
+    from skimage.filters import threshold_otsu  # the reference implementation
+
+    scan = simulate_scan(reference, dpi=100, fade=0.35, noise_sigma=6, seed=2)
+    assert scan.image.min() > 120  # faint indeed: no pixel near black
+    t = otsu_threshold(scan.image)
+    assert abs(t - threshold_otsu(scan.image)) <= 1
+    mask, method = binarise(scan.image, 100.0)
+    assert method == "otsu" and 0.01 < mask.mean() < 0.2
+
+
+def test_blank_faint_and_black_pages(reference, template):
+    rng = np.random.default_rng(0)
+    blank = np.clip(rng.normal(238, 6, (1169, 827)), 0, 255).astype(np.uint8)
+    black = np.clip(rng.normal(20, 6, (1169, 827)), 0, 255).astype(np.uint8)
+    faint = simulate_scan(reference, dpi=100, fade=0.35, noise_sigma=6, seed=2)
+    out = {name: check_page(RasterPage(f"{name}.png", 1, img, 100.0), [template])
+           for name, img in (("blank", blank), ("black", black), ("faint", faint.image))}
+    assert out["blank"]["verdict"] == "unrecognised" and "blank page" in out["blank"]["findings"][0]["message"]
+    assert out["black"]["verdict"] == "unrecognised" and "almost all black" in out["black"]["findings"][0]["message"]
+    assert out["faint"]["verdict"] == "pass" and out["faint"]["template"] == "T-7"
+    [note] = out["faint"]["findings"]
+    assert note["message"].startswith("Faint print") and 60 < note["value"] < 110
+
+
+# -- paper not flat -------------------------------------------------------------------------------
+def _cubic_field(p: np.ndarray) -> np.ndarray:
+    x, y = p[:, 0] / 600, p[:, 1] / 800
+    return np.column_stack([1.5 * x - 2.0 * y * y + 1.2 * x ** 3, 2.0 * x * y - 1.0 * y + 0.8 * y ** 3])
+
+
+def test_field_agrees_with_scipy_on_the_same_points():
+    from scipy.interpolate import RBFInterpolator
+
+    rng = np.random.default_rng(0)
+    pts = rng.uniform([0, 0], [600, 800], (60, 2))
+    field = fit_field(pts, _cubic_field(pts), np.ones((60, 2), bool))
+    # A smoothing spline with an overwhelming smoothing term reduces to its cubic polynomial
+    # part, the least-squares cubic through the points (scipy.interpolate.RBFInterpolator).
+    ref = RBFInterpolator(pts, _cubic_field(pts), kernel="thin_plate_spline", smoothing=1e9, degree=3)
+    grid = rng.uniform([0, 0], [600, 800], (200, 2))
+    assert field.degree == 3
+    assert np.abs(field.at(grid) - ref(grid)).max() < 1e-3
+    assert np.abs(field.at(grid) - _cubic_field(grid)).max() < 1e-6
+
+
+def test_a_moved_box_cannot_bend_the_field():
+    rng = np.random.default_rng(4)
+    pts = rng.uniform([0, 0], [600, 800], (60, 2))
+    res = _cubic_field(pts)
+    moved = res.copy()
+    moved[7] += (8 * MM, 0.0)  # one box 8 mm to the right
+    clean = fit_field(pts, res, np.ones((60, 2), bool))
+    field = fit_field(pts, moved, np.ones((60, 2), bool))
+    assert np.abs(field.at(pts) - clean.at(pts)).max() < 1e-6  # the moved box has no weight
+    assert field.support == (59, 60)
+
+
+def test_a_rule_measures_the_field_only_across_itself():
+    rng = np.random.default_rng(5)
+    pts = rng.uniform([0, 0], [600, 800], (40, 2))
+    res = _cubic_field(pts)
+    meas = np.ones((40, 2), bool)
+    meas[:10, 0] = False  # ten horizontal rules: their x (along) is not a measurement
+    res[:10, 0] += 30.0  # ... and is far off, as a rule run into a box side would be
+    field = fit_field(pts, res, meas)
+    assert np.abs(field.at(pts) - _cubic_field(pts)).max() < 1e-6
+
+
+def test_moved_box_on_a_warped_page_is_still_named(tmp_path, template):
+    moved = draw_form(tmp_path / "moved.pdf", move={"Call sign": (0.0, 8.0)})
+    named = 0
+    for seed in range(3):
+        scan = simulate_scan(moved, dpi=150, warp_mm=1.5, rotation_deg=0.2, seed=seed)
+        rec = check_page(RasterPage("warped.png", 1, scan.image, 150.0), [template])
+        boxes = [o for o in rec["offending"] if o["caption"] == "Call sign"]
+        assert rec["verdict"] == "mismatched", rec["findings"]
+        assert [o["caption"] for o in rec["offending"]] == ["Call sign"]
+        assert boxes[0]["status"] == "moved" and boxes[0]["offset_mm"][1] == pytest.approx(8.0, abs=0.6)
+        assert rec["warp_mm"] is not None and rec["warp_mm"] < 2.5
+        named += 1
+    assert named == 3
+
+
+def test_warped_intact_page_passes_with_its_bend_recorded(reference, template):
+    scan = simulate_scan(reference, dpi=150, warp_mm=1.5, seed=11)
+    rec = check_page(RasterPage("warped.png", 1, scan.image, 150.0), [template])
+    assert rec["verdict"] == "pass" and rec["offending"] == [], rec["findings"]
+    assert 0.1 < rec["warp_mm"] < 2.0
+
+
+# -- rules judged as rules ------------------------------------------------------------------------
+def _el(i, kind, frame):
+    return Element(id=f"{kind}-{i:03d}", kind=kind, frame=tuple(float(v) for v in frame), angle=0.0, source="raster")
+
+
+def _rule_form():
+    """Four marks, two boxes; a rule running into the first box's side, a free rule."""
+    els = [_el(k, "mark", (x, y, x + 14, y + 14)) for k, (x, y) in enumerate([(30, 30), (550, 30), (30, 800), (550, 800)])]
+    els += [_el(1, "box", (300, 100, 500, 140)), _el(2, "box", (100, 400, 300, 450)), _el(3, "box", (320, 600, 520, 650))]
+    els += [_el(1, "hline", (100, 119.5, 300, 120.5)),  # ends at the box's left side (x = 300)
+            _el(2, "hline", (100, 299.5, 500, 300.5))]  # free at both ends
+    return els
+
+
+@pytest.mark.parametrize("change, status", [
+    ({}, "ok"),
+    ({"hline-001": (100, 119.5, 323, 120.5)}, "ok"),          # ran 23 pt on into the box: not judged
+    ({"hline-001": (100, 126.0, 300, 127.0)}, "moved"),       # 6.5 pt (2.3 mm) down across itself
+    ({"hline-002": (100, 299.5, 445, 300.5)}, "resized"),     # shortened by 14 %
+    ({"hline-002": (100, 299.5, 560, 300.5)}, "resized"),     # lengthened by 15 % at a free end
+    ({"hline-002": (96, 299.5, 530, 300.5)}, "ok"),           # 8.5 % longer: within 10 %
+])
+def test_rules_are_judged_across_and_by_span(change, status):
+    tmpl = _rule_form()
+    found = [e.replace(frame=change.get(e.id, e.frame)) for e in tmpl]
+    m = solve(tmpl, found, position_tol=2 * MM, size_tol=0.10)
+    got = {r.id: r.status for r in m.elements}
+    changed = next(iter(change), "hline-001")
+    assert got[changed] == status
+    assert all(s == "ok" for k, s in got.items() if k != changed)
+
+
+def test_free_rule_ends_from_the_template():
+    tmpl = _rule_form()
+    rules = np.array([7, 8])
+    assert free_rule_ends(tmpl, rules, 4.25).tolist() == [[True, False], [True, True]]
+
+
+def test_rule_offset_across_counts_at_its_worst_end():
+    tmpl = _rule_form()
+    # The free rule turned about its left end: 5 pt off at its right end, 400 pt along.
+    found = [e for e in tmpl]
+    found[8] = found[8].replace(angle=float(np.degrees(np.arctan2(5, 400))), frame=(100, 302.0, 500, 303.0))
+    ta, ia = FrameArrays.of(tmpl), FrameArrays.of(found)
+    across, ratio = judge_rules(ta, ia, np.array([8]), np.array([8]), Pose.identity(), np.zeros((1, 2)),
+                                np.ones((1, 2), bool), 0.10)
+    assert across[0, 0] == 0.0 and across[0, 1] == pytest.approx(5.0, abs=0.05)
+    assert ratio[0] == pytest.approx(1.0, abs=0.01)
+
+
+def test_rule_span_stops_where_other_ink_touches():
+    mask = np.zeros((100, 300), bool)
+    mask[49:52, 50:250] = True  # a rule 200 px long, 3 px wide
+    mask[20:80, 248:252] = True  # a box side it runs into at the right
+    mask[40:49, 60:64] = True  # handwriting touching it near the left end
+    t0, t1, touched0, touched1 = rule_span(mask, (50, 50.5), (250, 50.5), 3, 4)
+    assert (touched0, touched1) == (True, True)
+    assert 50 + 200 * t0 == pytest.approx(64, abs=1) and 50 + 200 * t1 == pytest.approx(247, abs=1)
+    alone = np.zeros((100, 300), bool)
+    alone[49:52, 50:250] = True
+    t0, t1, touched0, touched1 = rule_span(alone, (50, 50.5), (250, 50.5), 3, 4)
+    assert (touched0, touched1) == (False, False) and t0 == pytest.approx(0.0) and t1 == pytest.approx(1.0, abs=0.01)
+
+
+# -- text is not boxes ----------------------------------------------------------------------------
+def test_bold_heading_yields_no_box_inside_its_letters(tmp_path):
+    from reportlab.lib.pagesizes import A4
+    from reportlab.pdfbase.pdfmetrics import stringWidth
+    from reportlab.pdfgen import canvas
+
+    path = tmp_path / "bold.pdf"
+    c = canvas.Canvas(str(path), pagesize=A4)
+    headings = []
+    for k, size in enumerate((14, 20, 28, 36)):
+        text = "BOARD OF KBH 80"
+        x, base = 60.0, 120.0 + 70 * k
+        c.setFont("Helvetica-Bold", size)
+        c.drawString(x, A4[1] - base, text)
+        # The heading's box from reportlab's own font metrics (cap height of Helvetica is
+        # 0.718 em, from the font's AFM file): top-left origin, y down.
+        headings.append((x, base - 0.75 * size, x + stringWidth(text, "Helvetica-Bold", size), base + 0.25 * size))
+    c.setLineWidth(0.8)
+    c.rect(60, A4[1] - 560, 200, 40)
+    c.rect(300, A4[1] - 535, 12, 12)
+    c.save()
+    for dpi, blur, jpeg in ((150, 0.0, None), (200, 1.0, 60), (300, 0.8, 85)):
+        scan = simulate_scan(path, dpi=dpi, blur_sigma_px=blur, jpeg_quality=jpeg, seed=1)
+        found = extract_raster(RasterPage("bold.png", 1, scan.image, float(dpi))).elements
+        boxes = [e for e in found if e.kind in ("box", "checkbox")]
+        inside = [e for e in boxes for h in headings
+                  if e.frame[0] >= h[0] - 3 and e.frame[2] <= h[2] + 3 and e.frame[1] >= h[1] - 3 and e.frame[3] <= h[3] + 3]
+        assert inside == [], (dpi, [(e.kind, e.frame) for e in inside])
+        # The real box and checkbox are still found.
+        assert sorted(e.kind for e in boxes) == ["box", "checkbox"], (dpi, boxes)
+
+
+# -- cut-off pages --------------------------------------------------------------------------------
+def test_verdict_incomplete_ranks_just_below_mismatched():
+    assert VERDICTS.index("incomplete") == VERDICTS.index("mismatched") + 1
+    assert SEVERITY["incomplete"] < SEVERITY["shifted"]
+
+
+@pytest.mark.parametrize("edge, share", [("bottom", 0.12), ("top", 0.08), ("left", 0.15)])
+def test_cut_off_page_is_incomplete_and_names_what_is_missing(reference, template, edge, share):
+    scan = simulate_scan(reference, dpi=100, cut=(edge, share), seed=5)
+    rec = check_page(RasterPage("cut.png", 1, scan.image, 100.0), [template])
+    assert rec["verdict"] == "incomplete", rec["findings"]
+    assert not any(f["verdict"] == "shifted" for f in rec["findings"])
+    [cut] = [f for f in rec["findings"] if f["verdict"] == "incomplete"]
+    assert f"beyond the {edge} edge" in cut["message"] and cut["element"] == edge
+    # What the truth pose puts more than 3 mm outside the image is named (zones by name).
+    tp = template.pages[0]
+    h, w = scan.image.shape
+    size = (w * 72 / 100, h * 72 / 100)
+    for z in tp.zones:
+        x0, top, x1, bottom = z.frame
+        c = scan.pose.apply(np.array([[x0, top], [x1, bottom]], float))
+        out = max(-c[:, 0].min(), -c[:, 1].min(), c[:, 0].max() - size[0], c[:, 1].max() - size[1]) / MM
+        if out > 3:
+            assert f"'{z.name}'" in cut["message"], (z.name, cut["message"])
+        elif out < 1:
+            assert f"'{z.name}'" not in cut["message"], (z.name, cut["message"])
+
+
+def test_form_cut_by_the_edge_is_kept_but_an_edge_shadow_is_not():
+    from layoutcheck.extract.raster.binarise import _off_border
+
+    mask = np.zeros((400, 300), bool)
+    mask[:, :6] = True  # a dark band along the left edge (a scanner's shadow)
+    mask[100:300:20, 50:300] = True  # a table's rules, cut by the right edge
+    mask[100:281, 50:300:50] = True  # ... and its columns
+    out = _off_border(mask, 2)
+    assert not out[:, :6].any()  # the band is dropped
+    assert np.array_equal(out[:, 40:], mask[:, 40:])  # the table is kept whole
+
+
+# -- kept and to stay working ---------------------------------------------------------------------
+@pytest.mark.parametrize("name, kw", [
+    ("dropout red", {"colour": ((235, 140, 130), (255, 255, 255))}),
+    ("dropout blue", {"colour": ((120, 150, 235), (255, 255, 255))}),
+    ("dropout orange", {"colour": ((245, 170, 90), (255, 255, 255))}),
+    ("shadow and gradient", {"edge_shadow": True}),
+    ("punch holes", {"punch_holes": True}),
+    ("tinted boxes", {"tint": True, "blur_sigma_px": 0.6}),
+    ("colour on yellowish paper", {"colour": ((25, 25, 40), (250, 240, 200)), "jpeg_quality": 85}),
+])
+def test_kept_nuisances_still_pass(tmp_path, reference, template, name, kw):
+    scan = simulate_scan(reference, dpi=150, rotation_deg=0.2, noise_sigma=3, seed=7, **kw)
+    path = save_scan(scan, tmp_path / ("scan.jpg" if kw.get("jpeg_quality") else "scan.png"))
+    [rec] = list(check_file(path, [template]))
+    assert rec["template"] == "T-7" and rec["offending"] == [], (name, rec["findings"])
+    assert rec["verdict"] == "pass", (name, rec["findings"])

@@ -312,7 +312,7 @@ def main() -> None:
         seed = i + (100_000 if args.moved else 0)  # the extra pages are other scans of the same forms
         scan = simulate_scan(pdf, **nuisances(seed, np.random.default_rng([11, seed])))
         t_scan = time.perf_counter() - t0
-        page = RasterPage(source=str(pdf), page=1, image=scan.image, dpi=scan.dpi, bitonal=scan.bitonal)
+        page = RasterPage(source=str(pdf), page=1, image=scan.image, dpi_x=scan.dpi, dpi_y=scan.dpi_y, bitonal=scan.bitonal)
         t0 = time.perf_counter()
         found = extract(page)
         t_ext = time.perf_counter() - t0

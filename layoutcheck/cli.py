@@ -1,4 +1,4 @@
-"""Command line: ``layoutcheck learn``, ``verify``, ``templates``, ``watch``, ``show`` and ``demo``.
+"""Command line: ``layoutcheck learn``, ``verify``, ``templates``, ``watch``, ``show``, ``promote`` and ``demo``.
 
 Thin on purpose: everything a library user would also need lives in :mod:`layoutcheck.api`, the
 only part of the library this module uses.
@@ -8,7 +8,10 @@ error or unreadable template, 3 records or report incomplete (a write failed, or
 
 from __future__ import annotations
 
+import contextlib
+import signal
 import sys
+import threading
 from pathlib import Path
 
 import click
@@ -18,7 +21,7 @@ from . import __version__
 from .api import (EXIT_FLAGGED, EXIT_HELP, EXIT_INCOMPLETE, EXIT_PASS, EXIT_USAGE, MEMORY_MB, PAGE_TIMEOUT_S,
                   BatchOptions, CheckSettings, OutputError, LearnError, ReadLimits, TemplateError, Tolerances, alike_templates,
                   expand_inputs, open_template_index,
-                  learn as learn_template, learning_summary, load_templates as api_load_templates, parse_pages,
+                  learn as learn_template, learning_summary, load_templates as api_load_templates, parse_pages, promote,
                   run_batch, save_template, summary_table, update_template, write_report)
 
 
@@ -32,6 +35,26 @@ class Incomplete(click.ClickException):
     """Records or report could not be written: exit code 3, one line."""
 
     exit_code = EXIT_INCOMPLETE
+
+
+def _interrupt(signum, frame):
+    raise KeyboardInterrupt
+
+
+@contextlib.contextmanager
+def interruptible():
+    """SIGTERM stops a command as Ctrl-C does; either, outside the batch (which handles them
+    itself, letting running pages finish), ends it with one line and exit code 3."""
+    main_thread = threading.current_thread() is threading.main_thread()
+    old = signal.signal(signal.SIGTERM, _interrupt) if main_thread else None
+    try:
+        yield
+    except KeyboardInterrupt:
+        raise Incomplete("interrupted: the records or the report may be incomplete; "
+                         "repeat the same command with --resume to finish") from None
+    finally:
+        if main_thread:
+            signal.signal(signal.SIGTERM, old)
 
 
 def load_templates(paths, warn=None):
@@ -304,23 +327,24 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
     except ValueError as exc:
         raise click.UsageError(str(exc)) from None
     make_bar = _progress(quiet)
-    bar = make_bar(len(files)) if make_bar else None
-    try:
-        result = run_batch(files, templates, settings, limits, output=json_out, options=options,
-                           progress=bar.update_to if bar else None)
-    except OutputError as exc:
-        raise Incomplete(str(exc)) from None
-    finally:
-        if bar is not None:
-            bar.close()
-    records = result.records
-    if report_out:
-        _write_report(report_out, records, templates.by_name({r["template"] for r in records if r.get("template")}), tol)
-    # With records on standard output, the people's summary goes to standard error.
-    to_err = json_out == "-"
-    if not quiet and records:
-        click.echo("\n".join(summary_table(records).split("\n")[:-1]), err=to_err)
-    click.echo(result.summary(), err=to_err)
+    with interruptible():
+        bar = make_bar(len(files)) if make_bar else None
+        try:
+            result = run_batch(files, templates, settings, limits, output=json_out, options=options,
+                               progress=bar.update_to if bar else None)
+        except OutputError as exc:
+            raise Incomplete(str(exc)) from None
+        finally:
+            if bar is not None:
+                bar.close()
+        records = result.records
+        if report_out:
+            _write_report(report_out, records, templates.by_name({r["template"] for r in records if r.get("template")}), tol)
+        # With records on standard output, the people's summary goes to standard error.
+        to_err = json_out == "-"
+        if not quiet and records:
+            click.echo("\n".join(summary_table(records).split("\n")[:-1]), err=to_err)
+        click.echo(result.summary(), err=to_err)
     sys.exit(EXIT_INCOMPLETE if result.interrupted else EXIT_PASS if result.all_pass else EXIT_FLAGGED)
 
 
@@ -409,7 +433,8 @@ def watch(template, inbox, out_dir, once, settle, json_out, report_out, dpi, pas
         else:
             click.echo(line, err=True)
 
-    summary = run_watch(inbox, out_dir, templates, settings, limits, options, ws, log=log, progress_factory=make_bar)
+    with interruptible():
+        summary = run_watch(inbox, out_dir, templates, settings, limits, options, ws, log=log, progress_factory=make_bar)
     files = summary.files
     click.echo(f"{sum(files.values())} file(s) filed: {files['pass']} pass, {files['review']} review, {files['error']} error")
     sys.exit(EXIT_INCOMPLETE if summary.interrupted else EXIT_PASS if summary.all_pass else EXIT_FLAGGED)
@@ -432,6 +457,26 @@ def show(template, output, reference, dpi):
         raise TemplateProblem(str(exc)) from None
     path = show_template(tmpl, output, reference=reference, template_path=template, dpi=dpi)
     click.echo(f"wrote {path}")
+
+
+@main.command("promote")
+@click.argument("template", type=click.Path(exists=True, dir_okay=False))
+@click.argument("element_ids", nargs=-1, required=True)
+@click.option("--page", type=click.IntRange(min=1), default=1, show_default=True, help="Template page the elements are on.")
+@click.option("-o", "--output", "output", type=click.Path(dir_okay=False), help="Template file to write (default: TEMPLATE, rewritten).")
+def promote_command(template, element_ids, page, output):
+    """Take ELEMENT_IDS, set aside as probable fill-in when TEMPLATE was learned from a filled
+    scan, into the form (see them first with ``layoutcheck show``)."""
+    try:
+        (tmpl,) = api_load_templates(template)
+        for element_id in element_ids:
+            tmpl = promote(tmpl, page, element_id)
+    except TemplateError as exc:
+        raise TemplateProblem(str(exc)) from None
+    except LearnError as exc:
+        raise click.ClickException(str(exc)) from None
+    save_template(tmpl, output or template)
+    click.echo(f"{tmpl.name} page {page}: {', '.join(element_ids)} now part of the form; wrote {output or template}")
 
 
 @main.command()

@@ -192,7 +192,7 @@ def test_scans_of_two_revisions_a_box_apart_go_to_their_own(house):
     for k, (rot, shift) in ((0, (1.5, (3.0, -2.0))), (1, (-2.0, (-4.0, 3.0)))):
         pdf = lookalike.draw_pdf(specs[k], d / f"scan{k}.pdf")
         scan = simulate_scan(pdf, dpi=200, rotation_deg=rot, shift_mm=shift, noise_sigma=4.0, fill=True, stamp=True, seed=k)
-        page = RasterPage(source=str(pdf), page=1, image=scan.image, dpi=scan.dpi)
+        page = RasterPage(source=str(pdf), page=1, image=scan.image, dpi_x=scan.dpi, dpi_y=scan.dpi_y)
         rec = check.check_page(page, templates, CheckSettings())
         assert (rec["template"], rec["revision"]) == (specs[k].name, specs[k].revision), rec["findings"]
 

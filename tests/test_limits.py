@@ -210,6 +210,26 @@ def test_report_that_cannot_be_written_exit_3_and_no_temporary_file(tmp_path, te
     assert "\n" not in res.output.strip() and list(tmp_path.iterdir()) == []
 
 
+def test_signal_while_the_report_is_written_exit_3(tmp_path, template_file, monkeypatch):
+    """Ctrl-C (or SIGTERM, which the command turns into the same) after the batch, while the
+    report is drawn: one line, exit code 3, the records already whole."""
+    from layoutcheck import cli
+
+    def stopped(*a, **k):
+        os.kill(os.getpid(), signal.SIGTERM)  # as a service manager stopping the run would
+        raise AssertionError("SIGTERM did not stop the command")
+
+    monkeypatch.setattr(cli, "write_report", stopped)
+    out = tmp_path / "o.jsonl"
+    res = CliRunner().invoke(main, ["verify", str(template_file), str(EXACT), "-q", "--json", str(out),
+                                    "--report", str(tmp_path / "r.html")])
+    assert res.exit_code == EXIT_INCOMPLETE, res.output
+    assert res.output.strip() == ("Error: interrupted: the records or the report may be incomplete; "
+                                  "repeat the same command with --resume to finish")
+    assert [json.loads(line)["verdict"] for line in out.read_text().splitlines()] == ["pass"]
+    assert signal.getsignal(signal.SIGTERM) is signal.SIG_DFL  # the command's handler is gone again
+
+
 def test_output_in_a_missing_folder_exit_3(tmp_path, template_file):
     res = CliRunner().invoke(main, ["verify", str(template_file), str(EXACT), "-q", "--json", str(tmp_path / "no" / "o.jsonl")])
     assert res.exit_code == EXIT_INCOMPLETE

@@ -85,3 +85,25 @@ def test_set_aside_elements_are_drawn_with_their_reason(tmp_path):
     assert re.findall(r'<polygon class="mk aside" data-id="([^"]+)"', text) == ["hline-901"]
     assert "(not straight (0.05 mm off its line))" in text
     assert "1 set aside as probable fill-in" in text
+
+
+def test_a_person_promotes_set_aside_elements_from_the_command_line(tmp_path):
+    """After looking at the page ``show`` wrote, a person takes a set-aside element into the form."""
+    (t,) = lc.load_templates(ROOT / "templates" / "KBH-101.json")
+    p = t.pages[0]
+    rule = dataclasses.replace(p.elements[0], id="hline-901", kind="hline", frame=(100.0, 400.0, 180.0, 401.0))
+    page = dataclasses.replace(p, set_aside=(rule,), set_aside_why={"hline-901": "seen on 1 of 2 samples"},
+                               samples=2, seen={**{e.id: 2 for e in p.elements}, "hline-901": 1})
+    path = tmp_path / "t.json"
+    lc.save_template(lc.Template(t.name, (page,), ("a.png", "b.png")), path)
+    res = CliRunner().invoke(main, ["promote", str(path), "hline-901"])
+    assert res.exit_code == 0, res.output
+    (got,) = lc.load_templates(path)
+    assert [e.id for e in got.pages[0].elements][-1] == "hline-901" and got.pages[0].set_aside == ()
+    assert got.pages[0].elements[-1].frame == (100.0, 400.0, 180.0, 401.0)
+    # An id that is not set aside: one line naming the template, page and element; nothing written.
+    before = path.read_bytes()
+    res = CliRunner().invoke(main, ["promote", str(path), "box-999"])
+    assert res.exit_code == 1
+    assert res.output.strip() == "Error: template KBH-101 page 1: no element 'box-999' set aside"
+    assert path.read_bytes() == before

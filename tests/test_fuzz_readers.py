@@ -18,6 +18,7 @@ from hypothesis import HealthCheck, given, settings, strategies as st
 
 import hostile_corpus as H
 from layoutcheck.sources import PageError, RasterPage, ReadLimits, VectorPage, read_pages
+from test_fuzz import mutate  # one way of damaging a file, shared with the quick fuzz tests
 
 RUNS = settings(max_examples=2000, deadline=None, database=None,
                 suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
@@ -54,17 +55,6 @@ def _seed_pdf(kind: str) -> bytes:
 SEEDS = {"pdf-vector": _seed_pdf("vector"), "pdf-scan": _seed_pdf("scan"),
          "png": _seed_image("PNG"), "jpeg": _seed_image("JPEG"), "tiff": _seed_image("TIFF")}
 EXT = {"pdf-vector": "pdf", "pdf-scan": "pdf", "png": "png", "jpeg": "jpg", "tiff": "tif"}
-
-
-def mutate(data: bytes, draw) -> bytes:
-    """Overwrite a few runs of bytes, then perhaps cut the file short."""
-    buf = bytearray(data)
-    for _ in range(draw(st.integers(1, 8))):
-        at = draw(st.integers(0, len(buf) - 1))
-        buf[at:at + draw(st.integers(1, 16))] = draw(st.binary(min_size=1, max_size=16))
-    if draw(st.booleans()):
-        buf = buf[: draw(st.integers(0, len(buf)))]
-    return bytes(buf)
 
 
 def read_once(path: str) -> int:

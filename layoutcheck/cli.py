@@ -181,7 +181,22 @@ def output_options(json_help: str, report_help: str):
 
 
 def tolerance_options(f):
-    return _stack(f, [
+    """The tolerances a verdict is judged by, passed on as one :class:`Tolerances`
+    (``tolerances``); the source of each default is in :mod:`layoutcheck.verdict`."""
+    import functools
+
+    @functools.wraps(f)
+    def inner(*args, max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support,
+              min_dpi, max_cut, max_warp, **kwargs):
+        try:
+            tolerances = Tolerances(max_skew_deg=max_skew, max_scale_error_pct=max_scale_error, max_shift_mm=max_shift,
+                                    element_tolerance_mm=element_tolerance, element_size_pct=element_size_tolerance,
+                                    min_support=min_support, min_dpi=min_dpi, max_cut_mm=max_cut, max_warp_mm=max_warp)
+        except ValueError as exc:
+            raise click.UsageError(str(exc)) from None
+        return f(*args, tolerances=tolerances, **kwargs)
+
+    return _stack(inner, [
         optgroup.group("Tolerances"),
         optgroup.option("--max-skew", type=float, default=Tolerances.max_skew_deg, show_default=True, help="Degrees of turn accepted."),
         optgroup.option("--max-scale-error", type=float, default=Tolerances.max_scale_error_pct, show_default=True, help="Percent scale error accepted."),
@@ -191,16 +206,11 @@ def tolerance_options(f):
         optgroup.option("--min-support", type=float, default=Tolerances.min_support, show_default=True, help="Share of elements that must agree for the page to be the form."),
         optgroup.option("--min-dpi", type=float, default=Tolerances.min_dpi, show_default=True,
                         help="Least effective resolution anywhere on the form of a photo; below it the photo is to be taken again."),
+        optgroup.option("--max-cut", type=float, default=Tolerances.max_cut_mm, show_default=True, metavar="MM",
+                        help="Millimetres of the form that may lie beyond an edge of the image; more is 'incomplete'."),
+        optgroup.option("--max-warp", type=float, default=Tolerances.max_warp_mm, show_default=True, metavar="MM",
+                        help="Millimetres the content may bend away from one flat placement (paper not flat) before it is a finding."),
     ])
-
-
-def make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support,
-                    min_dpi=Tolerances.min_dpi) -> Tolerances:
-    try:
-        return Tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support,
-                          min_dpi)
-    except ValueError as exc:
-        raise click.UsageError(str(exc)) from None
 
 
 def handoff_options(f):
@@ -302,16 +312,14 @@ def _progress(quiet: bool):
 @batch_options()
 @handoff_options
 def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max_pixels, more_templates, expect_revision,
-           max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, min_dpi, quiet,
-           handoff, batch):
+           tolerances, quiet, handoff, batch):
     """Check INPUT files (PDF, PNG, JPEG, TIFF) against TEMPLATE (a file or a folder of templates).
 
     INPUTS are files, folders (searched recursively), globs, or '-' for a list of paths on
     standard input. Each page gets one JSON Lines record, in input and page order.
     """
     templates = load_templates([template, *more_templates])
-    tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, min_dpi)
-    settings = CheckSettings(tolerances=tol, expect_revision=expected_revisions(expect_revision, templates), **handoff)
+    settings = CheckSettings(tolerances=tolerances, expect_revision=expected_revisions(expect_revision, templates), **handoff)
     limits = read_limits(dpi, password, max_pages, max_pixels, batch)
     if batch["resume"] and (not json_out or json_out == "-"):
         raise click.UsageError("--resume needs --json FILE (the run's output file)")
@@ -339,7 +347,7 @@ def verify(template, inputs, json_out, report_out, dpi, password, max_pages, max
                 bar.close()
         records = result.records
         if report_out:
-            _write_report(report_out, records, templates.by_name({r["template"] for r in records if r.get("template")}), tol)
+            _write_report(report_out, records, templates.by_name({r["template"] for r in records if r.get("template")}), tolerances)
         # With records on standard output, the people's summary goes to standard error.
         to_err = json_out == "-"
         if not quiet and records:
@@ -398,8 +406,7 @@ def templates_command(template_dir, neighbours):
 @batch_options(resume=False)
 @handoff_options
 def watch(template, inbox, out_dir, once, settle, json_out, report_out, dpi, password, max_pages, max_pixels,
-          more_templates, expect_revision, max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support,
-          min_dpi, quiet, handoff, batch):
+          more_templates, expect_revision, tolerances, quiet, handoff, batch):
     """Watch INBOX: check each file dropped there against TEMPLATE, record it, and move it to
     OUT/pass/, OUT/review/ or OUT/error/.
 
@@ -414,8 +421,7 @@ def watch(template, inbox, out_dir, once, settle, json_out, report_out, dpi, pas
     if batch["scheduler"] and batch["engine"] != "dask":
         raise click.UsageError("--scheduler needs --engine dask")
     templates = load_templates([template, *more_templates])
-    tol = make_tolerances(max_skew, max_scale_error, max_shift, element_tolerance, element_size_tolerance, min_support, min_dpi)
-    settings = CheckSettings(tolerances=tol, expect_revision=expected_revisions(expect_revision, templates), **handoff)
+    settings = CheckSettings(tolerances=tolerances, expect_revision=expected_revisions(expect_revision, templates), **handoff)
     limits = read_limits(dpi, password, max_pages, max_pixels, batch)
     try:
         options = BatchOptions(jobs=batch["jobs"], page_timeout=batch["page_timeout"], memory_mb=batch["memory_mb"],

@@ -32,7 +32,7 @@ def test_verify_options_come_in_groups_in_order():
     assert g["Outputs"] == ["--json", "--report", "--quiet"]
     assert g["Batch"] == ["--jobs", "--resume", "--page-timeout", "--max-memory", "--max-content-mb", "--max-drawing-ops",
                           "--engine", "--scheduler"]
-    assert g["Tolerances"][0] == "--max-skew" and len(g["Tolerances"]) == 7 and g["Tolerances"][-1] == "--min-dpi"
+    assert g["Tolerances"][0] == "--max-skew" and len(g["Tolerances"]) == 9 and g["Tolerances"][-3:] == ["--min-dpi", "--max-cut", "--max-warp"]
     # Every option of the command is in exactly one group (only --help stands alone).
     # (the option-group package adds a nameless stand-in option per group heading)
     params = [p for p in main.commands["verify"].params if p.param_type_name == "option" and p.opts]

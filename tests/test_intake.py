@@ -369,3 +369,31 @@ def test_kept_nuisances_still_pass(tmp_path, reference, template, name, kw):
     [rec] = list(check_file(path, [template]))
     assert rec["template"] == "T-7" and rec["offending"] == [], (name, rec["findings"])
     assert rec["verdict"] == "pass", (name, rec["findings"])
+
+
+def test_max_cut_flag_sets_how_much_of_the_form_may_be_off_the_image(tmp_path, reference, template):
+    """The bottom 12 % cut off: incomplete by default (2 mm). With ``--max-cut`` above what is
+    missing, the page is judged on what is there: its content then sits off the centre of the
+    short image, by half of what was cut."""
+    import json
+
+    from click.testing import CliRunner
+
+    from layoutcheck.cli import main
+    from layoutcheck.template import save_template
+
+    path = tmp_path / "cut.png"
+    save_scan(simulate_scan(reference, dpi=100, cut=("bottom", 0.12), seed=5), path)
+    tpath = tmp_path / "t.json"
+    save_template(template, tpath)
+    recs = {}
+    for flag in ([], ["--max-cut", "60"]):
+        out = tmp_path / f"r{len(flag)}.jsonl"
+        res = CliRunner().invoke(main, ["verify", str(tpath), str(path), "-q", "--json", str(out), *flag])
+        assert res.exit_code == 1, res.output
+        (recs[len(flag)],) = [json.loads(line) for line in out.read_text().splitlines()]
+    assert recs[0]["verdict"] == "incomplete" and recs[2]["verdict"] == "shifted"
+    # 12 % of an A4 page's 297 mm height (ISO 216) is 35.6 mm, well within 60 mm; half of it,
+    # 17.8 mm, is how far the content's centre sits below the short image's.
+    assert recs[2]["pose"]["shift_mm"][1] == pytest.approx(0.12 * 297 / 2, abs=1.0)
+    assert not any(f["verdict"] == "incomplete" for f in recs[2]["findings"])

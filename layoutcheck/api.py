@@ -32,7 +32,7 @@ from .check import (CheckSettings, alike_templates, check_page as _check_page, h
                     learning_summary, parse_pages, sample_files, update as _update)
 from .index import TemplateIndex, as_index
 from .report import write_report
-from .sources import ReadLimits, RasterPage, image_page, open_document, record_path
+from .sources import ReadLimits, image_page, open_document, record_path
 from .summary import counts_line, summary_table
 from .template import LearnError, Template, TemplateError, load_template, save_template
 from .verdict import SEVERITY, VERDICTS, Tolerances

@@ -20,9 +20,10 @@ pose from its points to the input page's points (projective), which the match is
 so every caller sees one pose from template to input.
 
 A page states no usable resolution when its file gives none, or one at which the image would be a
-sheet larger than :data:`MAX_SHEET_IN` (phones write 72 dpi into a 12-megapixel photo: a sheet of
-55 inches). Such a page is given a working resolution, :func:`working_dpi`, from the size of the
-sheet found on it; the scale is measured from the form itself afterwards.
+sheet larger than :data:`~layoutcheck.sources.MAX_SHEET_IN` (phones write 72 dpi into a
+12-megapixel photo: a sheet of 55 inches). Such a page is given a working resolution
+(:func:`~layoutcheck.sources.working_dpi`) from the size of the sheet found on it; the scale is
+measured from the form itself afterwards.
 """
 
 from __future__ import annotations
@@ -34,7 +35,7 @@ import numpy as np
 
 from .elements import POINTS_PER_INCH
 from .pose import Pose
-from .sources import ASSUMED_LONG_SIDE_IN, MAX_SHEET_IN, RasterPage, working_dpi  # noqa: F401  (part of this module's face)
+from .sources import RasterPage, working_dpi
 
 #: Side of the reduced photo on which the sheet is sought, pixels (about 2 mm per pixel).
 SHEET_SEARCH_PX = 512
@@ -69,13 +70,6 @@ class Capture:
     page: RasterPage
     to_input: Pose
     sheet_px: np.ndarray | None = None
-
-
-def stated_dpi_usable(dpi: float | None, shape: tuple[int, int]) -> bool:
-    """Whether a stated resolution can be the page's: stated, and the sheet it implies not huge."""
-    if dpi is None or not np.isfinite(dpi) or dpi <= 0:
-        return False
-    return max(shape) / dpi <= MAX_SHEET_IN
 
 
 def _poly_terms(x: np.ndarray, y: np.ndarray) -> np.ndarray:

@@ -324,7 +324,7 @@ def test_a_straight_blue_line_on_a_colour_scan_is_set_aside_by_its_colour(ruled,
     """A line ruled in blue ink is as straight as print: only its colour gives it away."""
     from PIL import Image
 
-    d, pdf = ruled[0], ruled[1]
+    pdf = ruled[1]
     sc = simulate_scan(pdf, dpi=DPI, blur_sigma_px=0.5, seed=5, oversample=2)
     rgb = np.repeat(sc.image[..., None], 3, axis=2)
     q = np.round(np.array([[120.0, 115.0], [170.0, 115.0]]) * PX * 16).astype(np.int32)

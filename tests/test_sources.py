@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from PIL import Image
 
-from layoutcheck.sources import PageError, RasterPage, ReadLimits, read_pages, snap_dpi
+from layoutcheck.sources import RasterPage, ReadLimits, read_pages, snap_dpi
 
 
 def page_image(w=400, h=600):

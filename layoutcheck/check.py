@@ -661,32 +661,62 @@ def look_again(page: RasterPage, found: PageElements, tp: TemplatePage, match: M
                settings: CheckSettings) -> tuple[PageElements, Match]:
     """Look again, at the place the pose predicts, for the offending rules and boxes of a scan.
 
-    What the second look finds (:func:`layoutcheck.extract.look.second_look`) is added to the
-    found elements and the page is matched again, so those elements are judged like any other.
-    Pages with nothing offending, or whose second look finds nothing new, are returned as they
-    are.
+    A rule found moved or resized is measured again along its ink and put on its printed span
+    (:func:`layoutcheck.extract.raster.printed.printed_rules`, the rule a template learned from
+    a filled scan keeps): handwriting whose tail runs on along a rule's end, or a signature's
+    stroke merged with it, no longer lengthens or shifts it. What the second look finds
+    (:func:`layoutcheck.extract.look.second_look`) is added to the found elements. The page is
+    then matched again, so those elements are judged like any other (their ``source`` is
+    ``"look"``). Pages with nothing offending, or where looking again changes nothing, are
+    returned as they are.
     """
+    from .consensus import RULE_KINDS
     from .extract.look import LOOK_KINDS, second_look
+    from .extract.raster.printed import printed_rules
 
-    wanted = {r.id for r in match.elements
-              if r.judged and r.status != "ok" and r.kind in LOOK_KINDS and not r.in_moved_section}
-    if not wanted:
+    offending = [r for r in match.elements if r.judged and r.status != "ok" and not r.in_moved_section]
+    wanted = {r.id for r in offending if r.kind in LOOK_KINDS}
+    partners = sorted({r.input_index for r in offending
+                       if r.kind in RULE_KINDS and r.input_index is not None
+                       and found.elements[r.input_index].kind in RULE_KINDS})
+    if not wanted and not partners:
         return found, match
-    expected = [e for e in tp.elements_for(found.source) if e.id in wanted]
     square = square_pixels(page)
+    elements = list(found.elements)
+    remeasured = 0
+    if partners:
+        for i, (e, why) in zip(partners, printed_rules(square.image, square.dpi, [elements[i] for i in partners])):
+            if why:
+                elements[i] = e.replace(source="look")
+                remeasured += 1
+    expected = [e for e in tp.elements_for(found.source) if e.id in wanted]
     looked = [e for e in second_look(square.image, square.dpi, expected, match.pose) if e is not None]
     near = 0.5 / MM_PER_POINT
     new = []
     for e in looked:
         c, s = np.array(e.center), np.array(e.size)
         if not any(f.kind_class == e.kind_class and np.all(np.abs(np.array(f.center) - c) < near)
-                   and np.all(np.abs(np.array(f.size) - s) < near) for f in found.elements):
+                   and np.all(np.abs(np.array(f.size) - s) < near) for f in elements) \
+                and not any(_within_rule(e, f, near) for f in elements):
             new.append(e.replace(id=f"look-{len(new) + 1:03d}"))
-    if not new:
+    if not new and not remeasured:
         return found, match
-    more = PageElements(found.width, found.height, found.elements + tuple(new), source=found.source,
-                        note=f"{found.note}; second look: {len(new)} found".lstrip("; "))
+    said = [f"{remeasured} rules put on their printed span"] * bool(remeasured) + [f"second look: {len(new)} found"] * bool(new)
+    more = PageElements(found.width, found.height, tuple(elements) + tuple(new), source=found.source,
+                        note="; ".join([found.note] * bool(found.note) + said))
     return more, match_page(tp, more, settings)
+
+
+def _within_rule(piece: Element, rule: Element, near: float) -> bool:
+    """Whether ``piece`` is a stretch of the found ``rule``: same kind, on its line (within
+    ``near`` points across) and between its ends. The second look reaches only a little past
+    the expected ends, so on a rule printed longer it finds a piece of it, which says nothing new.
+    """
+    if piece.kind != rule.kind or piece.kind not in ("hline", "vline"):
+        return False
+    a = 0 if piece.kind == "hline" else 1
+    p0, p1, r0, r1 = piece.frame[a], piece.frame[a + 2], rule.frame[a], rule.frame[a + 2]
+    return abs(piece.center[1 - a] - rule.center[1 - a]) < near and r0 - near <= p0 and p1 <= r1 + near
 
 
 #: Verdicts whose page is the form in a known pose, so it can be normalised.

@@ -245,6 +245,30 @@ def test_a_tail_along_a_rule_is_cut_off_but_writing_across_it_is_not():
     assert (centre + hi) / MM == pytest.approx(34.0, abs=1.0)  # the tail's first millimetre lies on the rule
 
 
+def test_a_thick_stroke_must_be_straighter_than_print_to_count_as_printed():
+    """A felt pen's line ruled nearly straight is set aside because it is twice as thick as the
+    print; the same bow drawn print-thin, and a heavy bar drawn straight, stay."""
+    xs = np.linspace(5, 45, 400)
+    img = np.full((300, 400), 255, np.uint8)
+    for yy in (3.0, 8.0, 13.0):  # the print: three rules in line with each other, 0.25 mm
+        _poly(img, np.stack([xs, np.full_like(xs, yy)], 1), 0.25, 0)
+    bow = np.linspace(8, 30, 300)
+    wave = 0.02 * np.sin(bow * 2 * np.pi / 5)  # 0.02 mm: under the 0.022 mm a thin stroke is allowed
+    _poly(img, np.stack([bow, 22.0 + wave], 1), 0.64, 30)  # the pen
+    _poly(img, np.stack([bow, 26.0 + wave], 1), 0.25, 0)  # the same bow, print-thin
+    _poly(img, [[12, 32.0], [40, 32.0]], 0.7, 0)  # a heavy printed bar
+    rows = ((5, 45, 3.0), (5, 45, 8.0), (5, 45, 13.0), (8, 30, 22.0), (8, 30, 26.0), (12, 40, 32.0))
+    els = [Element(f"r{k}", "hline", (x0 * MM, (yy - 0.1) * MM, x1 * MM, (yy + 0.1) * MM), 0.0, source="raster")
+           for k, (x0, x1, yy) in enumerate(rows)]
+    t, paper = page_levels(img)
+    inks = [measure_line(img, DPI, e, t, paper) for e in els]
+    assert inks[3].thickness_mm > 1.5 * inks[0].thickness_mm and inks[5].thickness_mm > 1.5 * inks[0].thickness_mm
+    assert 0.011 < inks[3].residual_mm < 0.022 and 0.011 < inks[4].residual_mm < 0.022
+    s = sort_printed(img, DPI, els)
+    assert [e.id for e in s.set_aside] == ["r3"]
+    assert s.reasons["r3"].startswith("not straight") and "for a stroke thicker than the print" in s.reasons["r3"]
+
+
 def test_alignment_rescues_a_slightly_uneven_rule_but_not_a_lone_one():
     xs = np.linspace(5, 45, 400)
     img = np.full((200, 400), 255, np.uint8)
@@ -357,3 +381,53 @@ def test_a_bitonal_turned_scan_of_the_blank_keeps_every_rule_and_box(ruled, tmp_
     t = learn([save_scan(sc, tmp_path / "bitonal.png")])
     assert [e.label() for e in t.pages[0].set_aside if e.kind_class in ("line", "box")] == []
     assert sorted(e.kind for e in _structure(t)) == sorted(e.kind for e in _structure(blank))
+
+
+# -- verifying a filled page: rules on their printed span -----------------------------------------
+def _scan_with(tmp_path, pdf, name, draw):
+    # Upright, so that what is drawn in page millimetres lands on the printed rules.
+    sc = simulate_scan(pdf, dpi=DPI, rotation_deg=0.0, blur_sigma_px=0.5, noise_sigma=2, seed=5, oversample=2)
+    img = sc.image.copy()
+    draw(img)
+    return save_scan(type(sc)(img, sc.dpi, sc.pose, sc.settings, sc.page_size_pt), tmp_path / name)
+
+
+def test_a_filled_page_whose_writing_runs_on_along_a_rule_passes(ruled, tmp_path):
+    """Writing whose tail touches the free end of the "Vessel name" rule (45-125 mm) and runs on
+    along it for 12 mm makes the inked line 115 % of the rule: verified, the rule is put on its
+    printed span (the mechanism learning uses) and the page passes."""
+    from layoutcheck import check_page
+
+    _, pdf, blank, _ = ruled
+
+    def tail(img):
+        xs = np.linspace(60, 110, 200)
+        _poly(img, np.stack([xs, 46.0 - 1.2 * np.sin(xs * 2.4)], 1))  # writing above the rule
+        _poly(img, [[124.6, 50.0], [137.0, 49.95]], 0.5, 30)  # a tail from the rule's end, along it
+
+    result = check_page(_scan_with(tmp_path, pdf, "tail.png", tail), [blank])
+    rec = result.to_record()
+    assert rec["verdict"] == "pass", rec["findings"]
+    # The rule was measured again: named among what the second look settled.
+    vessel = next(e.id for e in blank.pages[0].raster_elements
+                  if e.kind == "hline" and abs(e.center[1] / MM - 50) < 1 and abs(e.frame[0] / MM - 45) < 1)
+    assert vessel in rec["second_look"]
+
+
+def test_a_rule_printed_longer_is_still_resized(ruled, tmp_path):
+    """Ink that continues a rule as its own stroke (same weight, on its line) is not cut: the
+    rule printed 15 mm longer at its free end is reported resized."""
+    from layoutcheck import check_page
+
+    _, pdf, blank, _ = ruled
+
+    def longer(img):
+        # The printed rule is 0.6 pt (0.21 mm) black; the simulator blurs it the same way.
+        _poly(img, [[124.5, 50.0], [140.0, 50.0]], 0.6 / MM, 0)
+
+    rec = check_page(_scan_with(tmp_path, pdf, "longer.png", longer), [blank]).to_record()
+    assert rec["verdict"] == "mismatched"
+    (off,) = rec["offending"]
+    assert off["kind"] == "hline" and off["status"] == "resized"
+    # 95 mm over 80 mm: the rule is drawn from 45 to 125 mm in draw_ruled_form, now runs to 140 mm.
+    assert off["size_ratio"] == pytest.approx(95 / 80, abs=0.02)

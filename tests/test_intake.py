@@ -17,7 +17,6 @@ from layoutcheck.check import CheckSettings, check_file, check_page, learn
 from layoutcheck.consensus import free_rule_ends, judge_rules, solve, FrameArrays
 from layoutcheck.elements import Element
 from layoutcheck.extract.raster import binarise, extract_raster, otsu_threshold
-from layoutcheck.extract.raster.rules import rule_span
 from layoutcheck.field import fit_field
 from layoutcheck.pose import Pose
 from layoutcheck.simulate import save_scan, simulate_scan
@@ -265,20 +264,6 @@ def test_rule_offset_across_counts_at_its_worst_end():
                                 np.ones((1, 2), bool), 0.10)
     assert across[0, 0] == 0.0 and across[0, 1] == pytest.approx(5.0, abs=0.05)
     assert ratio[0] == pytest.approx(1.0, abs=0.01)
-
-
-def test_rule_span_stops_where_other_ink_touches():
-    mask = np.zeros((100, 300), bool)
-    mask[49:52, 50:250] = True  # a rule 200 px long, 3 px wide
-    mask[20:80, 248:252] = True  # a box side it runs into at the right
-    mask[40:49, 60:64] = True  # handwriting touching it near the left end
-    t0, t1, touched0, touched1 = rule_span(mask, (50, 50.5), (250, 50.5), 3, 4)
-    assert (touched0, touched1) == (True, True)
-    assert 50 + 200 * t0 == pytest.approx(64, abs=1) and 50 + 200 * t1 == pytest.approx(247, abs=1)
-    alone = np.zeros((100, 300), bool)
-    alone[49:52, 50:250] = True
-    t0, t1, touched0, touched1 = rule_span(alone, (50, 50.5), (250, 50.5), 3, 4)
-    assert (touched0, touched1) == (False, False) and t0 == pytest.approx(0.0) and t1 == pytest.approx(1.0, abs=0.01)
 
 
 # -- text is not boxes ----------------------------------------------------------------------------

@@ -380,7 +380,7 @@ def page_view(index: int, rec: dict, templates: dict, tol: Tolerances, base_dir,
     looked = [clean(str(i)) for i in rec.get("second_look") or []]
     if looked:
         view["sections"].append(("Found only on a second look at their expected place (under a stamp, across a "
-                                 "tick, or a rule broken in the scan): " + ", ".join(looked)
+                                 "tick, a rule broken in the scan, or writing running on along a rule): " + ", ".join(looked)
                                  + ". They are in place; a glance confirms it."))
     if with_images and rec.get("page") is not None:
         _add_picture(view, rec, templates, base_dir)

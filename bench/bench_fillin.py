@@ -38,8 +38,8 @@ HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
 sys.path.insert(0, str(HERE))
 OUT = HERE / "results" / "fillin.md"
-#: Today's code: the commit this work started from.
-BASELINE = "3faa966"
+#: Today's code: the commit this work started from (main before rules were put on their printed span in verification).
+BASELINE = "407dadb"
 DPI = 200
 #: Rendering at twice the scan resolution (400 dpi) before area averaging: enough for verdicts,
 #: and half the time of the simulator's default (600 dpi).
@@ -275,10 +275,11 @@ def summarise(new: dict, old: dict, rev: str, seconds: float) -> str:
                      f"| {fn['kept_right']}/{fn['learned']} | {fn['found']}/{fn['ref']} | {vo}/{len(fo['cases'])} | {vn}/{len(fn['cases'])} |")
     lines.append("")
     lines += [
-        "A filled page being verified (the last row of the first table) is judged by the verifying side: a rule",
-        "on the input whose measured end runs on along a tail of writing is reported moved or resized whatever",
-        "the template holds. That is for rules judged as rules (across their axis, and by their span when ink",
-        "touches their ends), not for learning.",
+        "A filled page being verified (the last row of the first table) is judged by the verifying side. A rule",
+        "found moved or resized there is measured again along its ink and put on its printed span, by the same",
+        "function learning uses (`printed.printed_rules` / `on_printed_span`), before the page is matched again.",
+        "What still fails there is a rule crossed along its whole length by a signature whose stroke also lies",
+        "along it: the first reading finds only a piece of the rule.",
         "",
     ]
     wrong = [(f["form"], c, m) for f in new["forms"] for c in f["cases"] for m in ("one", "three") if c[m] != c["want"]]

@@ -168,7 +168,7 @@ def make_suite(workdir: Path) -> list[dict]:
             elif fault:
                 want = "mismatched"
             else:
-                want, _ = truth_verdict(type("C", (), {"fault": None})(), sc.pose, tol, (tp.width, tp.height), sc.size_pt)
+                want, _ = truth_verdict(type("C", (), {"fault": None})(), sc.pose, tol, tp, sc.size_pt)
             entry["verify"].append({"case": name, "path": path, "want": want, "fault": fault})
         out.append(entry)
     return out

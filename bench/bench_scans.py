@@ -28,18 +28,31 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from scan_suite import REFS, make_cases, scan  # noqa: E402
 
 OUT = Path(__file__).resolve().parent / "results" / "scans.md"
-MARGIN = {"rot": 0.1, "scale_pct": 0.2, "shift_mm": 0.5}
+MARGIN = {"rot": 0.1, "scale_pct": 0.2, "shift_mm": 0.5, "cut_mm": 0.5}
 
 
-def truth_verdict(case, pose, tol, tsize, isize):
-    """The verdict the truth calls for, and whether it is clear of every tolerance by a margin."""
+def truth_verdict(case, pose, tol, tp, isize):
+    """The verdict the truth calls for, and whether it is clear of every tolerance by a margin.
+
+    A page turned a few degrees within a sheet-sized image can put a corner of the form off the
+    image: by the truth's pose, a page with an element more than ``max_cut_mm`` beyond an edge is
+    *incomplete*.
+    """
+    from layoutcheck.elements import MM_PER_POINT
+    from layoutcheck.verdict import beyond_edges
+
+    tsize = (tp.width, tp.height)
+    frames = np.array([e.frame for e in tp.elements_for("raster")], float)
+    cut = float(beyond_edges(frames, pose, isize).max()) * MM_PER_POINT
     rot = pose.rotation_deg
     serr = max(abs(pose.scale_x - 1), abs(pose.scale_y - 1)) * 100
     shift = float(np.hypot(*pose.shift_mm(tsize, isize)))
     clear = (abs(abs(rot) - tol.max_skew_deg) > MARGIN["rot"] and abs(serr - tol.max_scale_error_pct) > MARGIN["scale_pct"]
-             and abs(shift - tol.max_shift_mm) > MARGIN["shift_mm"])
+             and abs(shift - tol.max_shift_mm) > MARGIN["shift_mm"] and abs(cut - tol.max_cut_mm) > MARGIN["cut_mm"])
     if case.fault:
         return "mismatched", clear
+    if cut > tol.max_cut_mm:
+        return "incomplete", clear
     if serr > tol.max_scale_error_pct:
         return "rescaled", clear
     if abs(rot) > tol.max_skew_deg:
@@ -66,7 +79,7 @@ def accuracy(n: int, workdir: Path, seed: int = 7):
         # The same page without the second look (no image given), side by side.
         first = record_for(page.source, 1, found, [t], settings)
         tp = t.pages[case.page - 1]
-        want, clear = truth_verdict(case, sc.pose, tol, (tp.width, tp.height), sc.size_pt)
+        want, clear = truth_verdict(case, sc.pose, tol, tp, sc.size_pt)
         row = {"case": case, "verdict": rec["verdict"], "want": want, "clear": clear, "rec": rec, "first": first}
         p = rec["pose"]
         if p is not None:

@@ -854,7 +854,7 @@ def size_ratios(tmpl: FrameArrays, inp: FrameArrays, t: np.ndarray, i: np.ndarra
 
 def solve(template_elements, input_elements, sections=(), *, judged=None,
           settings: SolverSettings = SolverSettings(), position_tol: float = 5.67, size_tol: float = 0.10,
-          slack: dict | None = None, page_size: tuple[float, float] | None = None) -> Match:
+          slack: dict | None = None, page_size: tuple[float, float] | None = None, unseen=None) -> Match:
     """Match one input page to one template page.
 
     Parameters
@@ -873,6 +873,10 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     page_size : (width, height), optional
         Size of the input page in points. An element whose expected place lies partly off the
         page is not judged: the sheet cannot show it (a corner mark of a turned scan, say).
+    unseen : (N,) bool array, optional
+        Template elements the input cannot be relied on to show (drawn too thin for its
+        resolution): they cast no vote for the pose, where the few found among many lost would
+        be outvoted by chance pairs, but are still matched under the pose found.
 
     Returns
     -------
@@ -890,6 +894,9 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
         return Match(None, 0.0, _all_missing(tmpl_els, sections, judged), (), reason="no elements found on the page")
     tmpl, inp = FrameArrays.of(tmpl_els), FrameArrays.of(inp_els)
     ti, ii = gated_pairs(tmpl, inp, settings)
+    if unseen is not None:
+        votes = ~np.asarray(unseen, bool)[ti]
+        ti, ii = ti[votes], ii[votes]
     weights = np.array([settings.weights.get(e.kind, 0.3) for e in tmpl_els])
     hyps = _strong(vote_pose(tmpl, inp, ti, ii, settings))
     if len(hyps) > 1:

@@ -95,7 +95,8 @@ def extract_raster(page: RasterPage, settings: RasterSettings = RasterSettings()
     """
     elements, detail = extract_raster_detail(page, settings)
     note = f"raster {page.dpi:g} dpi, {detail.method}"
-    return PageElements(page.width, page.height, tuple(assign_ids(elements)), source="raster", note=note)
+    return PageElements(page.width, page.height, tuple(assign_ids(elements)), source="raster", note=note,
+                         dpi_xy=page.dpi_xy)
 
 
 def extract_raster_detail(page: RasterPage, settings: RasterSettings = RasterSettings()) -> tuple[list[Element], RasterDetail]:

@@ -54,6 +54,11 @@ class RasterSettings:
     speckle_mm: float = 0.3
     #: Components larger than this on either side are not printed characters, mm.
     max_glyph_mm: float = 15.0
+    #: A component at most the first this thick and at least the second long, mm, is a piece of
+    #: a rule (a thin rule that a coarse scan broke into dashes), not a character: letters of
+    #: print are taller than 1 mm and a hyphen is shorter than 3 mm (common practice: type of
+    #: 6 pt and up has capitals over 1.5 mm tall).
+    rule_piece_mm: tuple[float, float] = (0.8, 3.0)
     #: A solid square with a side in this range is a registration mark, mm.
     mark_side_mm: tuple[float, float] = (2.5, 12.0)
     #: Ink within this distance of the image border is left out (scanner edges and shadows), mm.

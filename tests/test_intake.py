@@ -7,6 +7,7 @@ Outside references are named beside each check.
 from __future__ import annotations
 
 import io
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -107,6 +108,107 @@ def test_standard_fax_is_checked_on_its_own_grid(tmp_path, reference, template):
     expect = scan.pose.apply(np.array([zone["frame_pt"][:2]], float))[0] * np.array([204, 98]) / 72.0
     assert zone["dpi"] == [204.0, 98.0]
     assert np.allclose(zone["quad"][0], expect, atol=1.5)
+
+
+def test_too_thin_counts_pixels_per_axis():
+    from layoutcheck.check import MIN_STROKE_PX, too_thin
+
+    # PDF unit: 1/72 in (ISO 32000-1). A 0.5 pt rule is 0.5 * 98 / 72 = 0.68 px tall at a
+    # standard fax's 98 dpi down, and 0.5 * 204 / 72 = 1.42 px wide at its 204 dpi across.
+    assert MIN_STROKE_PX == 1.0
+    hline = Element("hline-001", "hline", (0, 100, 200, 100.5), stroke=(None, 0.5))
+    vline = Element("vline-001", "vline", (100, 0, 100.5, 200), stroke=(0.5, None))
+    box = Element("box-001", "box", (0, 0, 100, 50), stroke=(0.8, 0.8))  # 0.8 * 98 / 72 = 1.09 px
+    thin_box = Element("box-002", "box", (0, 0, 100, 50), stroke=(0.8, 0.6))  # 0.82 px down
+    label = Element("label-001", "label", (0, 0, 50, 10), angle=None)  # no stroke: always judged
+    els = [hline, vline, box, thin_box, label]
+    assert too_thin(els, (204.0, 98.0)).tolist() == [True, False, False, True, False]
+    assert too_thin(els, (204.0, 196.0)).tolist() == [False] * 5  # fine fax: 1.36 px and more
+    assert too_thin(els, None).tolist() == [False] * 5  # a vector input shows every stroke
+
+
+def test_elements_carry_the_stroke_they_are_drawn_with(tmp_path):
+    from reportlab.lib.pagesizes import A4
+    from reportlab.pdfgen import canvas
+
+    path = tmp_path / "strokes.pdf"
+    c = canvas.Canvas(str(path), pagesize=A4)
+    c.setLineWidth(0.5)
+    c.line(100, 700, 400, 700)
+    c.setLineWidth(1.2)
+    c.rect(100, 500, 200, 60)
+    c.setFont("Helvetica", 10)
+    c.drawString(100, 600, "Harbour dues")
+    c.save()
+    template = learn([str(path)], name="S")
+    tp = template.pages[0]
+    for els in (tp.elements, tp.elements_for("raster")):  # the scan's elements take the drawn width
+        strokes = sorted((e.kind, e.stroke) for e in els if e.kind in ("hline", "box"))
+        assert strokes == [("box", (1.2, 1.2)), ("hline", (None, 0.5))]
+    # Kept through the template's own file.
+    from layoutcheck.template import load_template, save_template
+
+    save_template(template, tmp_path / "s.json")
+    again = load_template(tmp_path / "s.json").pages[0]
+    assert sorted((e.kind, e.stroke) for e in again.elements if e.stroke) == [("box", (1.2, 1.2)), ("hline", (None, 0.5))]
+
+
+#: The crew list: a table of 0.5 pt rules (0.68 px at 98 dpi) under boxes of 0.8 pt (1.09 px).
+CREW_LIST = Path(__file__).resolve().parents[1] / "sample_forms" / "references" / "KBH-412_crew_list.pdf"
+
+
+def _fax(pdf, tmp_path, name, seed):
+    # A fax thresholds at mid-grey and blurs by a fraction of its tall pixel (common practice).
+    scan = simulate_scan(pdf, dpi=(204, 98), rotation_deg=0.45, shift_mm=(1.5, -2.0), bitonal_threshold=128,
+                         blur_sigma_px=0.4, noise_sigma=3, seed=seed)
+    return scan, save_scan(scan, tmp_path / f"{name}.tif")
+
+
+def test_standard_fax_of_thin_rules_passes_and_names_what_it_cannot_show(tmp_path):
+    template = learn([str(CREW_LIST)], name="KBH-412")
+    scan, path = _fax(CREW_LIST, tmp_path, "crew", 4)
+    [rec] = list(check_file(path, [template]))
+    assert rec["template"] == "KBH-412" and rec["verdict"] == "pass", rec["findings"]
+    assert rec["offending"] == []
+    assert abs(rec["pose"]["scale_y"] / scan.pose.scale_y - 1) <= 0.003  # the fax target
+    [note] = [f for f in rec["findings"] if f["message"].startswith("Not judged at this resolution")]
+    assert note["verdict"] == "pass" and "(204 x 98 dpi)" in note["message"]
+    # Every rule and box of the table (0.5 pt) is named in the count; none of the 0.8 pt boxes.
+    tp = template.pages[0]
+    thin = {e.id for e in tp.elements_for("raster") if e.stroke and min(v for v in e.stroke if v) < 72 / 98}
+    assert note["value"] == len(thin) > 100
+    assert all(i in thin for i in note["message"].split("(")[-1].split(" and ")[0].rstrip(")").split(", "))
+
+
+def test_standard_fax_still_names_a_moved_box(tmp_path):
+    from pypdf import PdfReader, PdfWriter
+    from reportlab.pdfgen import canvas
+
+    # The 'Date' box (0.8 pt, 40 x 8 mm) moved 8 mm right: painted out in white, drawn again.
+    wtr = PdfWriter(clone_from=str(CREW_LIST))
+    page = wtr.pages[0]
+    h = float(page.mediabox.height)
+    buf = io.BytesIO()
+    c = canvas.Canvas(buf, pagesize=(float(page.mediabox.width), h))
+    x0, top, x1, bottom = 113.4, 153.1, 226.8, 175.7  # read with pdfplumber: top-left origin
+    c.setStrokeColorRGB(1, 1, 1)
+    c.setLineWidth(4)
+    c.rect(x0, h - bottom, x1 - x0, bottom - top)
+    c.setStrokeColorRGB(0, 0, 0)
+    c.setLineWidth(0.8)
+    c.rect(x0 + 8 * MM, h - bottom, x1 - x0, bottom - top)
+    c.save()
+    page.merge_page(PdfReader(io.BytesIO(buf.getvalue())).pages[0])
+    moved = tmp_path / "moved.pdf"
+    with open(moved, "wb") as fh:
+        wtr.write(fh)
+    template = learn([str(CREW_LIST)], name="KBH-412")
+    _, path = _fax(moved, tmp_path, "moved", 5)
+    [rec] = list(check_file(path, [template]))
+    assert rec["verdict"] == "mismatched", rec["findings"]
+    [o] = rec["offending"]
+    assert o["status"] == "moved" and np.allclose(o["frame"], (x0, top, x1, bottom), atol=1.0)
+    assert o["offset_mm"][0] == pytest.approx(8.0, abs=0.6)
 
 
 def test_normalised_fax_page_is_square_and_in_place():
@@ -358,8 +460,10 @@ def test_form_cut_by_the_edge_is_kept_but_an_edge_shadow_is_not():
     ("dropout red", {"colour": ((235, 140, 130), (255, 255, 255))}),
     ("dropout blue", {"colour": ((120, 150, 235), (255, 255, 255))}),
     ("dropout orange", {"colour": ((245, 170, 90), (255, 255, 255))}),
-    ("shadow and gradient", {"edge_shadow": True}),
+    ("edge shadow", {"edge_shadow": True}),
+    ("light gradient", {"light_gradient": 0.4}),
     ("punch holes", {"punch_holes": True}),
+    ("staple", {"staple": True}),
     ("tinted boxes", {"tint": True, "blur_sigma_px": 0.6}),
     ("colour on yellowish paper", {"colour": ((25, 25, 40), (250, 240, 200)), "jpeg_quality": 85}),
 ])
@@ -369,6 +473,25 @@ def test_kept_nuisances_still_pass(tmp_path, reference, template, name, kw):
     [rec] = list(check_file(path, [template]))
     assert rec["template"] == "T-7" and rec["offending"] == [], (name, rec["findings"])
     assert rec["verdict"] == "pass", (name, rec["findings"])
+
+
+def test_simulated_staple_and_light_gradient(reference):
+    from layoutcheck.simulate import _light_falloff
+
+    plain = simulate_scan(reference, dpi=150, seed=7).image.astype(int)
+    stapled = simulate_scan(reference, dpi=150, seed=7, staple=True).image.astype(int)
+    rows, cols = np.nonzero(stapled < plain - 40)
+    px_mm = 150 / 25.4  # 1 in = 25.4 mm
+    # In a top corner's margin, 12.7 mm long at 30-60 degrees: 6.4 to 11 mm along each axis.
+    assert rows.max() < 15 * px_mm and (cols.max() < 15 * px_mm or cols.min() > plain.shape[1] - 15 * px_mm)
+    for extent in (np.ptp(rows), np.ptp(cols)):
+        assert 6.0 * px_mm < extent < 12.0 * px_mm
+    assert stapled[rows, cols].min() < 60  # dark metal
+    # The light falls off linearly by the share asked, corner to far corner (checked with numpy).
+    f = _light_falloff((400, 300), 0.4, np.random.default_rng(3))
+    assert f.max() == pytest.approx(1.0, abs=0.005) and f.min() == pytest.approx(0.6, abs=0.005)
+    rows = np.polyfit(np.arange(400), f[:, 150], 1)
+    assert np.allclose(np.polyval(rows, np.arange(400)), f[:, 150], atol=1e-4)  # a straight line
 
 
 def test_max_cut_flag_sets_how_much_of_the_form_may_be_off_the_image(tmp_path, reference, template):

@@ -415,6 +415,62 @@ def test_bold_heading_yields_no_box_inside_its_letters(tmp_path):
         assert sorted(e.kind for e in boxes) == ["box", "checkbox"], (dpi, boxes)
 
 
+def test_letters_in_a_line_of_text_are_not_boxes_even_when_drawn_light(tmp_path):
+    """The test of the text line alone (the stroke-width test turned off): counters of a bold
+    heading are dropped, every real box and checkbox is kept, beside text or in a row."""
+    from reportlab.lib.pagesizes import A4
+    from reportlab.pdfbase.pdfmetrics import stringWidth
+    from reportlab.pdfgen import canvas
+
+    from layoutcheck.extract.raster import RasterSettings
+
+    path = tmp_path / "headings.pdf"
+    H = A4[1]
+    c = canvas.Canvas(str(path), pagesize=A4)
+    headings = []
+    for k, (size, text) in enumerate([(24, "BOARD"), (30, "ABDOPQR 8 0"), (36, "BOARD 808"), (36, "ABDOPQR 8 0")]):
+        x, base = 60.0, 110.0 + 80 * k
+        c.setFont("Helvetica-Bold", size)
+        c.drawString(x, H - base, text)
+        # The heading's box from reportlab's own font metrics, top-left origin, y down.
+        headings.append((x, base - 0.75 * size, x + stringWidth(text, "Helvetica-Bold", size), base + 0.25 * size))
+    c.setLineWidth(0.8)
+    real = [(60, 520, 260, 560), (300, 523, 312, 535), (60, 609, 71, 620), (400, 668, 412, 680)]
+    real += [(300 + 18 * i, 609, 311 + 18 * i, 620) for i in range(4)]  # a row: 7 pt apart, 11 pt tall
+    for x0, top, x1, bottom in real:
+        c.rect(x0, H - bottom, x1 - x0, bottom - top)
+    c.setFont("Helvetica", 10)
+    c.drawString(316, H - 533, "Dangerous goods on board")
+    c.setFont("Helvetica-Bold", 12)  # capitals 8.6 pt tall beside an 11 pt checkbox
+    c.drawString(75, H - 618, "BOARD DB 80")
+    c.setLineWidth(1.8)  # a tick across the last checkbox, running past its side
+    c.line(401, H - 674, 405, H - 679)
+    c.line(405, H - 679, 414, H - 666)
+    c.setFont("Helvetica", 8)
+    c.drawString(416, H - 677, "Livestock")
+    c.save()
+    lines_only = RasterSettings(min_box_inside=0.0, min_box_mm=0.0)
+    neither = RasterSettings(min_box_inside=0.0, min_box_mm=0.0, letter_off_outline=2.0, letter_stroke=100.0)
+
+    def boxes(page, st):
+        return [e for e in extract_raster(page, st).elements if e.kind in ("box", "checkbox")]
+
+    def in_heading(e):
+        return any(e.frame[0] >= h[0] - 3 and e.frame[2] <= h[2] + 3 and e.frame[1] >= h[1] - 3
+                   and e.frame[3] <= h[3] + 3 for h in headings)
+
+    for dpi, blur, jpeg in ((150, 0.0, None), (200, 1.0, 60), (300, 0.8, 85)):
+        scan = simulate_scan(path, dpi=dpi, blur_sigma_px=blur, jpeg_quality=jpeg, seed=1)
+        page = RasterPage("headings.png", 1, scan.image, float(dpi))
+        # Without either test, letters' counters are taken for boxes: the test below can fail.
+        assert any(in_heading(e) for e in boxes(page, neither)), dpi
+        found = boxes(page, lines_only)
+        assert [e for e in found if in_heading(e)] == [], dpi
+        assert len(found) == len(real), (dpi, [e.frame for e in found])
+        for f in real:
+            assert any(np.allclose(e.frame, f, atol=1.5) for e in found), (dpi, f)
+
+
 # -- cut-off pages --------------------------------------------------------------------------------
 def test_verdict_incomplete_ranks_just_below_mismatched():
     assert VERDICTS.index("incomplete") == VERDICTS.index("mismatched") + 1

@@ -128,7 +128,7 @@ def extract_raster_detail(page: RasterPage, settings: RasterSettings = RasterSet
     seg, wid = seg * to_pt, wid * to_pt
     seg, wid = _drop_border(seg, wid, page, settings.border_mm)
     seg, wid, fine = _on_axis(seg, wid, skew, settings.assembly.axis_tolerance_deg)
-    shapes = _find_boxes(seg, wid, fine, settings)
+    shapes = _find_boxes(seg, wid, fine, settings, small_bin, ddpi)
 
     # Ink that is not a rule.
     rules = cv2.dilate(runs.view(np.uint8), np.ones((3, 3), np.uint8)).astype(bool)

@@ -429,7 +429,7 @@ def median_ms(r: dict) -> str:
     return f"{statistics.median(r['ms']):.0f}"
 
 
-def report_flatbed(sides: list, rows: list, n: int, walls, elapsed: float) -> str:
+def report_flatbed(sides: list, rows: list, n: int, walls, elapsed: float, more: str = "") -> str:
     per = [r["flatbed"] for r in rows]
 
     def cells(f):
@@ -439,7 +439,7 @@ def report_flatbed(sides: list, rows: list, n: int, walls, elapsed: float) -> st
         v = np.maximum(v["sx"], v["sy"]).tolist() if scale else v["rot"]
         return f"{worst(v, 50)} / {worst(v, 95)} / {worst(v)}"
 
-    lines = [f"Written by `python bench/bench_intake.py --part flatbed --flatbed-n {n}` ({elapsed:.0f} s in all; "
+    lines = [f"Written by `python bench/bench_intake.py --part flatbed --flatbed-n {n}{more}` ({elapsed:.0f} s in all; "
              "checking: " + ", ".join(f"{s} {w:.0f} s" for s, w in zip(sides, walls)) + "). The cases of "
              "`bench/scan_suite.py` (seed 7): 200 and 300 dpi, turned up to 5 deg, shifted up to 6 mm, some printed "
              "fit to page, noise, blur, JPEG, bitonal, fill-in and stamps; every fourth with a planted fault. Scans "
@@ -525,9 +525,11 @@ def main() -> None:
     elapsed = time.perf_counter() - t_start
     walls = [w for _, w in runs]
     if args.part == "nuisances":
-        text = report_nuisances(sides, rows, args.n, walls, elapsed, f" --only {args.only}" if args.only else "")
+        text = report_nuisances(sides, rows, args.n, walls, elapsed, (f" --only {args.only}" if args.only else "")
+                                + (f" --main {args.main}" if args.main else ""))
     else:
-        text = report_flatbed(sides, rows, args.flatbed_n, walls, elapsed)
+        text = report_flatbed(sides, rows, args.flatbed_n, walls, elapsed,
+                              f" --main {args.main}" if args.main else "")
     RESULTS.mkdir(exist_ok=True)
     part = args.part + (f"_{args.only}" if args.only else "")
     out = RESULTS / f"intake_{part}.md"

@@ -892,6 +892,7 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     if not inp_els:
         return Match(None, 0.0, _all_missing(tmpl_els, sections, judged), (), reason="no elements found on the page")
     tmpl, inp = FrameArrays.of(tmpl_els), FrameArrays.of(inp_els)
+
     def hypotheses(voters: FrameArrays):
         ti, ii = gated_pairs(voters, inp, settings)
         hyps = _strong(vote_pose(voters, inp, ti, ii, settings))
@@ -902,8 +903,7 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
         # Also a vote of the elements the input can show: where most of the others are lost,
         # they would set the scale the pairs are gated by, and chance pairs outvote the few found.
         # Where they are there after all, the first vote is the better; the refined score decides.
-        seen, ti = hypotheses(FrameArrays.of([e for e, u in zip(tmpl_els, unseen) if not u]))
-        hyps += seen
+        hyps += hypotheses(FrameArrays.of([e for e, u in zip(tmpl_els, unseen) if not u]))[0]
     weights = np.array([settings.weights.get(e.kind, 0.3) for e in tmpl_els])
     best = None
     for h in hyps:

@@ -253,6 +253,22 @@ def test_blank_faint_and_black_pages(reference, template):
     assert note["message"].startswith("Faint print") and 60 < note["value"] < 110
 
 
+def test_light_falling_off_across_the_page_is_neither_ink_nor_hides_it(reference):
+    from layoutcheck.simulate import _light_falloff
+    from layoutcheck.sources import page_content_problem, page_contrast
+
+    rng = np.random.default_rng(4)
+    light = _light_falloff((1169, 827), 0.4, np.random.default_rng(1))  # A4 at 100 dpi (ISO 216)
+    noise = rng.normal(0, 6, light.shape)
+    blank = np.clip(238 * light + noise, 0, 255).astype(np.uint8)
+    c = page_contrast(blank)
+    # The paper's noise is the noise planted, not the light's fall-off (numpy's own spread).
+    assert c.noise == pytest.approx(float(np.std(noise)), rel=0.15)
+    assert "blank page" in page_content_problem(blank)
+    faint = simulate_scan(reference, dpi=100, fade=0.35, noise_sigma=6, light_gradient=0.4, seed=2)
+    assert page_content_problem(faint.image) is None
+
+
 # -- paper not flat -------------------------------------------------------------------------------
 def _cubic_field(p: np.ndarray) -> np.ndarray:
     x, y = p[:, 0] / 600, p[:, 1] / 800

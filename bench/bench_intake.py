@@ -1,16 +1,18 @@
 """Imperfect scans from real intake, today's code and the new code side by side.
 
 Run: ``python bench/bench_intake.py --part nuisances|flatbed [--n 30] [--flatbed-n 100]
-[--before PATH]``. Writes ``bench/results/intake_<part>.md``; ``bench/collect.py`` puts them in
-``docs/benchmarks.md``.
+[--before PATH] [--main PATH]``. Writes ``bench/results/intake_<part>.md``; ``bench/collect.py``
+puts them in ``docs/benchmarks.md``.
 
-Today's code is a checkout of the commit before this work, made with
-``git worktree add /tmp/base12 3faa966`` (the default of ``--before``).
+Today's code is a checkout of the commit before the work on imperfect scans began, made with
+``git worktree add /tmp/base12 3faa966`` (the default of ``--before``); ``--main`` adds a middle
+column for a later checkout (``git worktree add /tmp/base_main 407dadb``: the first round of that
+work, before coarse faxes, staples and light gradients were taken on). Each column names its commit.
 
 Every scan is simulated once (with the new simulator) and written to a file; the files are then
-checked by two processes, one with today's code first on ``PYTHONPATH`` (``--before``, a checkout
-of the code before this work) and one with the code under test, each learning its own templates
-from the same reference PDFs (``bench/intake_worker.py``). Truth comes from the simulation.
+checked by one process per column, each with its code first on ``PYTHONPATH`` and learning its
+own templates from the same reference PDFs (``bench/intake_worker.py``). Truth comes from the
+simulation.
 
 Part ``nuisances``: ``--n`` pages per nuisance over the five sample form pages, each page turned
 up to 1.5 degrees and shifted up to 3 mm, with one nuisance: standard and fine fax (204 x 98 and
@@ -18,7 +20,9 @@ up to 1.5 degrees and shifted up to 3 mm, with one nuisance: standard and fine f
 1.5 mm, bold headings (a 16-28 pt Helvetica-Bold heading added to the form, blurred and JPEG),
 rules that run into box sides (added to the form), a cut-off edge (5-20 % of the page at any
 edge), dropout colours, an edge shadow, punch holes, halftone tints in boxes, colour scans on
-yellowish paper; and a box moved 8 mm on a page warped by 1.5 mm.
+yellowish paper; a box moved 8 mm on a page warped by 1.5 mm; a standard fax (204 x 98) with a
+planted fault (a box moved 8 mm, removed or shrunk to 70 %; the box drawn with lines the fax can
+keep); a staple in a top corner; light falling off by 35-45 % across the page.
 
 Part ``flatbed``: the flatbed suite of ``bench/bench_scans.py`` (``bench/scan_suite.py``), the
 same cases for both sides, with accuracy of turn and scale.
@@ -48,7 +52,9 @@ from scan_suite import FORMS, MM, REFS, Case, make_cases, planted_pdf, scan  # n
 RESULTS = HERE / "results"
 NUISANCES = ("fax 204x98", "fax 204x196", "faded print", "warp 1.5 mm", "bold headings", "rules into box sides",
              "cut-off edge", "dropout colours", "edge shadow", "punch holes", "tinted boxes",
-             "colour, yellowish paper", "box moved 8 mm, warp 1.5 mm")
+             "colour, yellowish paper", "box moved 8 mm, warp 1.5 mm", "fax 204x98, planted fault", "staple",
+             "light gradient 35-45 %")
+FAULTS = ("moved", "missing", "resized")
 DROPOUT = ((235, 140, 130), (120, 150, 235), (245, 170, 90))  # light red, blue, orange ink
 
 
@@ -175,6 +181,7 @@ def nuisance_cases(n: int, work: Path, templates: dict, names=NUISANCES, seed: i
                       noise_sigma=float(rng.uniform(2, 6)), seed=int(rng.integers(1 << 30)), dpi=150)
             ext = "png"
             moved = None
+            fault = None
             if name.startswith("fax"):
                 # A fax machine thresholds at mid-grey (common practice); its optics blur by a
                 # fraction of its own pixel, which is twice as tall as wide at 204 x 98.
@@ -214,13 +221,29 @@ def nuisance_cases(n: int, work: Path, templates: dict, names=NUISANCES, seed: i
                 pdf = planted_pdf_in(c, templates[key], work)
                 kw.update(warp_mm=1.5)
                 moved = list(box.frame)
+            elif name == "staple":
+                kw.update(staple=True)
+            elif name.startswith("light gradient"):
+                kw.update(light_gradient=float(rng.uniform(0.35, 0.45)))
+            if name == "fax 204x98, planted fault":
+                from layoutcheck.check import too_thin
+                from scan_suite import standalone_boxes
+
+                tp = templates[key].pages[0]
+                boxes = [b for b in standalone_boxes(tp) if not too_thin([b], kw["dpi"])[0]]
+                box = boxes[int(rng.integers(len(boxes)))]
+                kind = FAULTS[k % 3]
+                c = Case(len(cases), f"{key}.pdf", 1, 150, 0.0, (1.0, 1.0), (0.0, 0.0), 0.0, 0.0, None, False, False,
+                         kind, box.id, 8.0)
+                pdf = planted_pdf_in(c, templates[key], work)
+                fault = (kind, list(box.frame))
             sc = simulate_scan(pdf, **kw)
             cid = f"{name}|{k}"
             path = work / "scans" / f"{len(cases):04d}.{ext}"
             save_scan(sc, path, jpeg_quality=int(rng.integers(60, 86)) if ext == "jpg" else 90)
             cases.append({"id": cid, "file": str(path), "template": key})
             truth[cid] = {"nuisance": name, "key": key, "pose": sc.pose, "size": sc.size_pt, "moved": moved,
-                          "dpi": sc.dpi_xy}
+                          "dpi": sc.dpi_xy, "fault": fault and fault[0], "fault_frame": fault and fault[1]}
     return cases, truth
 
 
@@ -314,6 +337,9 @@ def evaluate(records: dict, truth: dict, templates: dict, tol) -> dict:
         if t.get("moved"):
             r["named"].append(_named(rec, t["moved"], "moved"))
             r["only"].append(_named(rec, t["moved"], "moved") and len(rec["offending"]) == 1)
+        elif t.get("fault") and t["nuisance"] != "flatbed":
+            r["named"].append(_named(rec, t["fault_frame"], t["fault"]))
+            r["only"].append(_named(rec, t["fault_frame"], t["fault"]) and len(rec["offending"]) == 1)
         if t["nuisance"] == "flatbed":
             if t["fault"]:
                 r["faults"].append(_named(rec, t["fault_frame"], t["fault"]))
@@ -353,75 +379,101 @@ def worst(v: list, q: float | None = None) -> str:
     return f"{(np.percentile(v, q) if q else max(v)):.3f}"
 
 
-def report_nuisances(before: dict, after: dict, n: int, walls, elapsed: float, only: str = "") -> str:
+def report_nuisances(sides: list, rows: list, n: int, walls, elapsed: float, only: str = "") -> str:
+    """``sides``: column names, today's first and the code under test last; ``rows``: per side,
+    :func:`evaluate`'s measures."""
+    a = rows[-1]
+    cols = " | ".join(f"intact, {s}" for s in sides) + " | " + " | ".join(f"verdict, {s}" for s in sides)
+    ms = " | ".join(f"ms/page {s}" for s in sides)
     lines = [f"Written by `python bench/bench_intake.py --part nuisances --n {n}{only}` ({elapsed:.0f} s in all; "
-             f"checking: today's code {walls[0]:.0f} s, new code {walls[1]:.0f} s), on {platform.machine()} with "
-             f"2 shared cores, Python {platform.python_version()}. Today's code is the commit before this work "
-             "(3faa966); both sides check the same files and learn their own templates from the same PDFs.",
+             "checking: " + ", ".join(f"{s} {w:.0f} s" for s, w in zip(sides, walls)) + f"), on {platform.machine()} "
+             f"with 2 shared cores, Python {platform.python_version()}. {SIDES_NOTE}",
              "",
              f"{n} pages per nuisance over the five sample form pages (each also turned up to 1.5 deg and shifted up "
              "to 3 mm, noise 2-6 grey levels, 150 dpi unless said). *Intact* = right template and nothing offending "
              "(target >= 98 %); *verdict* = the verdict the truth calls for, on pages clear of every limit by a margin.",
              "",
-             "| nuisance | intact, today | intact, new | verdict, today | verdict, new | ms/page today | ms/page new |",
-             "|---|---|---|---|---|---|---|"]
+             f"| nuisance | {cols} | {ms} |",
+             "|---|" + "---|" * (3 * len(sides))]
     for name in NUISANCES:
-        b, a = before.get(name), after.get(name)
-        if not a:
+        if not a.get(name):
             continue
-        lines.append(f"| {name} | {share(b['intact'])} | {share(a['intact'])} | {share(b['verdict'])} | "
-                     f"{share(a['verdict'])} | {statistics.median(b['ms']):.0f} | {statistics.median(a['ms']):.0f} |")
+        per = [r[name] for r in rows]
+        lines.append(f"| {name} | " + " | ".join(share(r["intact"]) for r in per) + " | "
+                     + " | ".join(share(r["verdict"]) for r in per) + " | "
+                     + " | ".join(median_ms(r) for r in per) + " |")
     lines += ["", "Targets of their own:", "",
-              "| measure | today | new | target |", "|---|---|---|---|"]
+              "| measure | " + " | ".join(sides) + " | target |", "|---|" + "---|" * (len(sides) + 1)]
+
+    def row(text, name, key, fmt, target):
+        if name in a:
+            lines.append(f"| {text} | " + " | ".join(fmt(r[name][key]) for r in rows) + f" | {target} |")
+
     for name in ("fax 204x98", "fax 204x196"):
-        if name not in after:
-            continue
-        b, a = before[name], after[name]
-        lines.append(f"| {name}: largest scale error across, % | {worst(b['sx'])} | {worst(a['sx'])} | <= 0.3 |")
-        lines.append(f"| {name}: largest scale error down, % | {worst(b['sy'])} | {worst(a['sy'])} | <= 0.3 |")
-    b, a = before.get("cut-off edge"), after.get("cut-off edge")
-    if a:
-        lines.append(f"| cut-off edge: verdict incomplete | {share(b['incomplete'])} | {share(a['incomplete'])} | 100 % |")
-        lines.append(f"| cut-off edge: incomplete and every section more than 3 mm outside named | "
-                     f"{share(b['sections'])} | {share(a['sections'])} | 100 % |")
-    b, a = before.get("box moved 8 mm, warp 1.5 mm"), after.get("box moved 8 mm, warp 1.5 mm")
-    if a:
-        lines.append(f"| box moved 8 mm on a 1.5 mm warp: named moved | {share(b['named'])} | {share(a['named'])} | >= 98 % |")
-        lines.append(f"| ... and the only element offending | {share(b['only'])} | {share(a['only'])} | - |")
+        row(f"{name}: largest scale error across, %", name, "sx", worst, "<= 0.3")
+        row(f"{name}: largest scale error down, %", name, "sy", worst, "<= 0.3")
+    row("cut-off edge: verdict incomplete", "cut-off edge", "incomplete", share, "100 %")
+    row("cut-off edge: incomplete and every section more than 3 mm outside named", "cut-off edge", "sections", share,
+        "100 %")
+    row("box moved 8 mm on a 1.5 mm warp: named moved", "box moved 8 mm, warp 1.5 mm", "named", share, ">= 98 %")
+    row("... and the only element offending", "box moved 8 mm, warp 1.5 mm", "only", share, "-")
+    row("fax 204x98, box moved 8 mm, removed or shrunk to 70 %: named (element and status)",
+        "fax 204x98, planted fault", "named", share, ">= 98 %")
+    row("... and the only element offending", "fax 204x98, planted fault", "only", share, "-")
+    row("fax 204x98 with a planted fault: largest scale error (worse axis), %", "fax 204x98, planted fault", "sy",
+        worst, "<= 0.3")
     return "\n".join(lines)
 
 
-def report_flatbed(before: dict, after: dict, n: int, walls, elapsed: float) -> str:
-    b, a = before["flatbed"], after["flatbed"]
-    lines = [f"Written by `python bench/bench_intake.py --part flatbed --flatbed-n {n}` ({elapsed:.0f} s in all; "
-             f"checking: today's code {walls[0]:.0f} s, new code {walls[1]:.0f} s). The cases of "
+def median_ms(r: dict) -> str:
+    return f"{statistics.median(r['ms']):.0f}"
+
+
+def report_flatbed(sides: list, rows: list, n: int, walls, elapsed: float, more: str = "") -> str:
+    per = [r["flatbed"] for r in rows]
+
+    def cells(f):
+        return " | ".join(f(r) for r in per)
+
+    def spread(v, scale=False):
+        v = np.maximum(v["sx"], v["sy"]).tolist() if scale else v["rot"]
+        return f"{worst(v, 50)} / {worst(v, 95)} / {worst(v)}"
+
+    lines = [f"Written by `python bench/bench_intake.py --part flatbed --flatbed-n {n}{more}` ({elapsed:.0f} s in all; "
+             "checking: " + ", ".join(f"{s} {w:.0f} s" for s, w in zip(sides, walls)) + "). The cases of "
              "`bench/scan_suite.py` (seed 7): 200 and 300 dpi, turned up to 5 deg, shifted up to 6 mm, some printed "
              "fit to page, noise, blur, JPEG, bitonal, fill-in and stamps; every fourth with a planted fault. Scans "
-             "written as PNG and checked from the file by both sides. A page whose truth puts part of the form more "
+             "written as PNG and checked from the file by every side. A page whose truth puts part of the form more "
              "than 2 mm off the image (a 5 deg turn with a 6 mm shift can) is *incomplete* by the truth, and is "
-             "left out of the clean pages.",
+             f"left out of the clean pages. {SIDES_NOTE}",
              "",
-             "| measure | today | new | target |", "|---|---|---|---|",
-             f"| clean pages, nothing offending | {share(b['clean'])} | {share(a['clean'])} | >= 99.5 % |",
-             f"| planted faults named (element and status) | {share(b['faults'])} | {share(a['faults'])} | >= 99 % |",
-             f"| verdict as the truth (clear pages) | {share(b['verdict'])} | {share(a['verdict'])} | - |",
-             f"| turn error, median / 95th pct / largest, deg | {worst(b['rot'], 50)} / {worst(b['rot'], 95)} / "
-             f"{worst(b['rot'])} | {worst(a['rot'], 50)} / {worst(a['rot'], 95)} / {worst(a['rot'])} | no worse |",
-             f"| scale error (worse axis), median / 95th pct / largest, % | "
-             f"{worst(np.maximum(b['sx'], b['sy']).tolist(), 50)} / {worst(np.maximum(b['sx'], b['sy']).tolist(), 95)} / "
-             f"{worst(np.maximum(b['sx'], b['sy']).tolist())} | {worst(np.maximum(a['sx'], a['sy']).tolist(), 50)} / "
-             f"{worst(np.maximum(a['sx'], a['sy']).tolist(), 95)} / {worst(np.maximum(a['sx'], a['sy']).tolist())} | "
+             "| measure | " + " | ".join(sides) + " | target |", "|---|" + "---|" * (len(sides) + 1),
+             f"| clean pages, nothing offending | {cells(lambda r: share(r['clean']))} | >= 99.5 % |",
+             f"| planted faults named (element and status) | {cells(lambda r: share(r['faults']))} | >= 99 % |",
+             f"| verdict as the truth (clear pages) | {cells(lambda r: share(r['verdict']))} | - |",
+             f"| turn error, median / 95th pct / largest, deg | {cells(spread)} | no worse |",
+             f"| scale error (worse axis), median / 95th pct / largest, % | {cells(lambda r: spread(r, True))} | "
              "no worse |",
-             f"| time per page, median, ms | {statistics.median(b['ms']):.0f} | {statistics.median(a['ms']):.0f} | - |"]
+             f"| time per page, median, ms | {cells(median_ms)} | - |"]
     return "\n".join(lines)
+
+
+SIDES_NOTE = ""
+
+
+def commit_of(tree: Path) -> str:
+    out = subprocess.run(["git", "-C", str(tree), "rev-parse", "--short", "HEAD"], capture_output=True, text=True)
+    return out.stdout.strip() or "?"
 
 
 def main() -> None:
+    global SIDES_NOTE
     ap = argparse.ArgumentParser()
     ap.add_argument("--part", choices=("nuisances", "flatbed"), required=True)
     ap.add_argument("--n", type=int, default=30)
     ap.add_argument("--flatbed-n", type=int, default=100)
     ap.add_argument("--before", default="/tmp/base12", help="checkout of today's code")
+    ap.add_argument("--main", default=None, help="checkout of a later commit, for a middle column")
     ap.add_argument("--only", default=None, help="nuisances to run, by number in the list (e.g. 0-6)")
     ap.add_argument("--show", action="store_true", help="print the new code's pages that miss the truth")
     ap.add_argument("--new-only", action="store_true", help="(debugging) run the new code on both sides")
@@ -430,6 +482,12 @@ def main() -> None:
     from layoutcheck.check import learn
     from layoutcheck.verdict import Tolerances
 
+    trees = [ROOT if args.new_only else Path(args.before)] + ([Path(args.main)] if args.main else []) + [ROOT]
+    sides = [f"today ({commit_of(trees[0])})"] + ([f"then ({commit_of(trees[1])})"] if args.main else []) + ["new"]
+    SIDES_NOTE = (f"*Today* is commit {commit_of(trees[0])}, before the work on imperfect scans; "
+                  + (f"*then* is commit {commit_of(trees[1])}, its first round; " if args.main else "")
+                  + "*new* is the code under test. Every side checks the same files and learns its own templates "
+                    "from the same PDFs.")
     t_start = time.perf_counter()
     with tempfile.TemporaryDirectory() as tmp:
         work = Path(tmp)
@@ -453,22 +511,25 @@ def main() -> None:
             by_pdf = {name: learn([str(REFS / name)]) for name, _ in FORMS}
             cases, truth = flatbed_cases(args.flatbed_n, work, by_pdf, key_of)
         job = {"templates": {k: str(p) for k, p in pdfs.items()}, "cases": cases}
-        # Debugging only (--show --new-only): the new side alone, compared with itself.
-        rec_b, wall_b = run_side(ROOT if args.new_only else Path(args.before), job, work, "before")
-        rec_a, wall_a = run_side(ROOT, job, work, "after")
+        runs = [run_side(tree, job, work, f"side{k}") for k, tree in enumerate(trees)]
         tol = Tolerances()
-        before, after = evaluate(rec_b, truth, templates, tol), evaluate(rec_a, truth, templates, tol)
+        rows = [evaluate(rec, truth, templates, tol) for rec, _ in runs]
         if args.show:
+            rec_a = runs[-1][0]
             for cid, t in truth.items():
                 r = rec_a[cid]
                 want = truth_verdict(t, templates[t["key"]].pages[0], tol)[0]
-                if r["verdict"] != want or (r["offending"] and not (t.get("moved") and len(r["offending"]) == 1)):
+                if r["verdict"] != want or (r["offending"] and not ((t.get("moved") or t.get("fault"))
+                                                                    and len(r["offending"]) == 1)):
                     print(cid, want, r["verdict"], [f["message"][:100] for f in r["findings"]])
     elapsed = time.perf_counter() - t_start
+    walls = [w for _, w in runs]
     if args.part == "nuisances":
-        text = report_nuisances(before, after, args.n, (wall_b, wall_a), elapsed, f" --only {args.only}" if args.only else "")
+        text = report_nuisances(sides, rows, args.n, walls, elapsed, (f" --only {args.only}" if args.only else "")
+                                + (f" --main {args.main}" if args.main else ""))
     else:
-        text = report_flatbed(before, after, args.flatbed_n, (wall_b, wall_a), elapsed)
+        text = report_flatbed(sides, rows, args.flatbed_n, walls, elapsed,
+                              f" --main {args.main}" if args.main else "")
     RESULTS.mkdir(exist_ok=True)
     part = args.part + (f"_{args.only}" if args.only else "")
     out = RESULTS / f"intake_{part}.md"

@@ -9,9 +9,11 @@ fixed order, under a short preface. Run it after the benchmarks:
       && python bench/bench_watch.py && python bench/bench_hostile.py \\
       && python bench/bench_identify.py --part 1/3 && python bench/bench_identify.py --part 2/3 \\
       && python bench/bench_identify.py --part 3/3 && python bench/bench_identify.py --report \\
-      && python bench/bench_intake.py --part nuisances --only 0-6 \\
-      && python bench/bench_intake.py --part nuisances --only 7-12 \\
-      && python bench/bench_intake.py --part flatbed && python bench/collect.py
+      && python bench/bench_intake.py --part nuisances --only 0-6 --main /tmp/base_main \\
+      && python bench/bench_intake.py --part nuisances --only 7-9 --main /tmp/base_main \\
+      && python bench/bench_intake.py --part nuisances --only 10-12 --main /tmp/base_main \\
+      && python bench/bench_intake.py --part nuisances --only 13-15 --main /tmp/base_main \\
+      && python bench/bench_intake.py --part flatbed --main /tmp/base_main && python bench/collect.py
 
 The camera benchmark runs in parts (see ``bench/bench_camera.py``) before ``collect.py``.
 """
@@ -34,7 +36,10 @@ ORDER = (
     ("camera", "Camera captures: photos end to end, homography against findHomography"),
     ("hostile", "Hostile input under the default limits"),
     ("intake_nuisances_0-6", "Imperfect scans from real intake, part 1: faxes, faded print, warps, headings, rules"),
-    ("intake_nuisances_7-12", "Imperfect scans from real intake, part 2: cut-off pages, colours, shadows, holes, tints"),
+    ("intake_nuisances_7-9", "Imperfect scans from real intake, part 2: colours, shadows, holes"),
+    ("intake_nuisances_10-12", "Imperfect scans from real intake, part 3: tints, colour scans, a moved box on a warp"),
+    ("intake_nuisances_13-15", "Imperfect scans from real intake, part 4: faults on a standard fax, staples, light "
+                               "gradients"),
     ("intake_flatbed", "Imperfect scans from real intake: the flatbed suite, today's code and the new side by side"),
 )
 PREFACE = """# Benchmarks

@@ -17,7 +17,7 @@ from typing import Iterator, Sequence
 import numpy as np
 
 from .consensus import Match, SolverSettings, solve
-from .elements import MM_PER_POINT, Element, PageElements
+from .elements import MM_PER_POINT, POINTS_PER_INCH, Element, PageElements
 from .identify import IdentifySettings
 from .sources import (FAINT_CONTRAST, USUAL_DPI, PageError, RasterPage, ReadLimits, VectorPage, page_content_problem,
                       page_contrast, read_pages, render_pdf_page, square_pixels, where)
@@ -207,7 +207,8 @@ def printed_sort(page: RasterPage, found: PageElements) -> tuple[PageElements, t
     sorting = sort_printed(page.image, page.dpi, found.elements, colour)
     shaped = trim_to_structure(sorting.kept)
     why = {**sorting.reasons, **shaped.reasons}
-    return (PageElements(found.width, found.height, shaped.kept, source=found.source, note=found.note),
+    return (PageElements(found.width, found.height, shaped.kept, source=found.source, note=found.note,
+                         dpi_xy=found.dpi_xy),
             sorting.set_aside + shaped.set_aside, why)
 
 
@@ -268,12 +269,34 @@ class CheckSettings:
     normalise_replace: bool = False
 
 
+#: Thinnest stroke a scan keeps, pixels across: a scanner that thresholds at mid-grey (a fax
+#: does, common practice) keeps a stroke wherever it falls on the pixel grid only when it is at
+#: least one pixel thick; a thinner one split between two rows of pixels is under half in each,
+#: and is lost or broken into dashes (a 0.5 point rule at 98 dpi is 0.68 pixel tall).
+MIN_STROKE_PX = 1.0
+
+
+def too_thin(tp_elements, dpi_xy: tuple[float, float] | None) -> np.ndarray:
+    """Which template elements a scan at ``dpi_xy`` (x, y) cannot show: an outline stroke under
+    :data:`MIN_STROKE_PX` across on its axis. The page is taken as upright (its x the template's
+    x), as scans are within a few degrees; all False for a vector input (``dpi_xy`` None)."""
+    out = np.zeros(len(tp_elements), bool)
+    if dpi_xy is None:
+        return out
+    for k, e in enumerate(tp_elements):
+        if e.stroke is None:
+            continue
+        out[k] = any(s is not None and s * d / POINTS_PER_INCH < MIN_STROKE_PX for s, d in zip(e.stroke, dpi_xy))
+    return out
+
+
 def judged_mask(tp_elements, input_elements: PageElements) -> np.ndarray:
     """Which template elements count for this input.
 
     Printed text in a scan is used for the pose but not judged: without OCR, a label cannot be
     told from handwriting written beside it. Form fields are judged only when the input has any
-    (a printed or flattened copy has none).
+    (a printed or flattened copy has none). Rules and boxes drawn too thin for the scan's
+    resolution (:func:`too_thin`) are not judged: the scan cannot be relied on to show them.
     """
     raster = input_elements.source == "raster"
     has_fields = any(e.kind == "field" for e in input_elements.elements)
@@ -285,7 +308,20 @@ def judged_mask(tp_elements, input_elements: PageElements) -> np.ndarray:
             out.append(False)
         else:
             out.append(True)
-    return np.array(out, bool)
+    return np.array(out, bool) & ~too_thin(tp_elements, input_elements.dpi_xy)
+
+
+def thin_finding(tp: TemplatePage, found: PageElements) -> Finding | None:
+    """A note naming the rules and boxes not judged because the scan is too coarse for their
+    lines (:func:`too_thin`), or None."""
+    els = tp.elements_for(found.source)
+    thin = [e for e, t in zip(els, too_thin(els, found.dpi_xy)) if t]
+    if not thin:
+        return None
+    dx, dy = found.dpi_xy
+    shown = ", ".join(e.id for e in thin[:6]) + (f" and {len(thin) - 6} more" if len(thin) > 6 else "")
+    return Finding("pass", f"Not judged at this resolution ({dx:g} x {dy:g} dpi): {len(thin)} rules and boxes "
+                           f"drawn with lines under {MIN_STROKE_PX:g} pixel thick ({shown})", value=float(len(thin)))
 
 
 def match_page(tp: TemplatePage, found: PageElements, settings: CheckSettings) -> Match:
@@ -298,7 +334,7 @@ def match_page(tp: TemplatePage, found: PageElements, settings: CheckSettings) -
     return solve(els, found.elements, tp.sections, judged=judged, settings=settings.solver,
                  position_tol=settings.tolerances.element_tolerance_mm / MM_PER_POINT,
                  size_tol=settings.tolerances.element_size_pct / 100.0, slack=tp.slack,
-                 page_size=(found.width, found.height))
+                 page_size=(found.width, found.height), unseen=too_thin(els, found.dpi_xy))
 
 
 def identify_page(templates, found: PageElements, settings: CheckSettings):
@@ -461,6 +497,9 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
     recognised = verdict != "unrecognised"
     if recognised:
         findings += routing_findings(index, ident, found, settings)
+        thin = thin_finding(tp, found)
+        if thin is not None:
+            findings.append(thin)
         findings.sort(key=lambda f: SEVERITY[f.verdict])
         verdict = findings[0].verdict if findings else "pass"
     rec = {
@@ -703,7 +742,7 @@ def look_again(page: RasterPage, found: PageElements, tp: TemplatePage, match: M
         return found, match
     said = [f"{remeasured} rules put on their printed span"] * bool(remeasured) + [f"second look: {len(new)} found"] * bool(new)
     more = PageElements(found.width, found.height, tuple(elements) + tuple(new), source=found.source,
-                        note="; ".join([found.note] * bool(found.note) + said))
+                        note="; ".join([found.note] * bool(found.note) + said), dpi_xy=found.dpi_xy)
     return more, match_page(tp, more, settings)
 
 

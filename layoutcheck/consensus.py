@@ -854,7 +854,7 @@ def size_ratios(tmpl: FrameArrays, inp: FrameArrays, t: np.ndarray, i: np.ndarra
 
 def solve(template_elements, input_elements, sections=(), *, judged=None,
           settings: SolverSettings = SolverSettings(), position_tol: float = 5.67, size_tol: float = 0.10,
-          slack: dict | None = None, page_size: tuple[float, float] | None = None) -> Match:
+          slack: dict | None = None, page_size: tuple[float, float] | None = None, unseen=None) -> Match:
     """Match one input page to one template page.
 
     Parameters
@@ -873,6 +873,9 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     page_size : (width, height), optional
         Size of the input page in points. An element whose expected place lies partly off the
         page is not judged: the sheet cannot show it (a corner mark of a turned scan, say).
+    unseen : (N,) bool array, optional
+        Template elements the input cannot be relied on to show (drawn too thin for its
+        resolution): a second vote for the pose is held without them.
 
     Returns
     -------
@@ -889,11 +892,19 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     if not inp_els:
         return Match(None, 0.0, _all_missing(tmpl_els, sections, judged), (), reason="no elements found on the page")
     tmpl, inp = FrameArrays.of(tmpl_els), FrameArrays.of(inp_els)
-    ti, ii = gated_pairs(tmpl, inp, settings)
+
+    def hypotheses(voters: FrameArrays):
+        ti, ii = gated_pairs(voters, inp, settings)
+        hyps = _strong(vote_pose(voters, inp, ti, ii, settings))
+        return ([_most_assigned(hyps, voters, inp, settings)] if len(hyps) > 1 else hyps), ti
+
+    hyps, ti = hypotheses(tmpl)
+    if unseen is not None and np.any(unseen):
+        # Also a vote of the elements the input can show: where most of the others are lost,
+        # they would set the scale the pairs are gated by, and chance pairs outvote the few found.
+        # Where they are there after all, the first vote is the better; the refined score decides.
+        hyps += hypotheses(FrameArrays.of([e for e, u in zip(tmpl_els, unseen) if not u]))[0]
     weights = np.array([settings.weights.get(e.kind, 0.3) for e in tmpl_els])
-    hyps = _strong(vote_pose(tmpl, inp, ti, ii, settings))
-    if len(hyps) > 1:
-        hyps = [_most_assigned(hyps, tmpl, inp, settings)]
     best = None
     for h in hyps:
         starts = [h.pose, grow(h, tmpl, inp, weights, settings)] if settings.grow else [h.pose]

@@ -69,6 +69,12 @@ class Element:
     source : str
         ``"vector"``, ``"raster"``, or ``"look"`` (found on a scan by the second look at the
         place the page pose predicts, see :mod:`layoutcheck.extract.look`).
+    stroke : (float or None, float or None) or None
+        Thinnest stroke of the element's outline in points, across x (its upright sides) and
+        across y (its level sides), in the element's own frame; None on an axis with no such
+        side (a horizontal rule has no upright side), or None when not measured. A scan too
+        coarse on an axis to keep such a stroke cannot show the element (see
+        :func:`layoutcheck.check.too_thin`).
     """
 
     id: str
@@ -78,6 +84,7 @@ class Element:
     text: str | None = None
     caption: str | None = None
     source: str = "vector"
+    stroke: tuple[float | None, float | None] | None = None
 
     def __post_init__(self) -> None:
         if self.kind not in KIND_CLASS:
@@ -121,6 +128,7 @@ class Element:
             "text": self.text,
             "caption": self.caption,
             "source": self.source,
+            **({"stroke": [None if v is None else round(v, 3) for v in self.stroke]} if self.stroke else {}),
         }
 
     @classmethod
@@ -133,6 +141,8 @@ class Element:
             text=data.get("text"),
             caption=data.get("caption"),
             source=str(data.get("source", "vector")),
+            stroke=None if data.get("stroke") is None else tuple(None if v is None else float(v)
+                                                                  for v in data["stroke"]),  # type: ignore[arg-type]
         )
 
 
@@ -146,6 +156,8 @@ class PageElements:
     source: str = "vector"
     #: How the page was read, for people: e.g. "vector" or "raster 300 dpi".
     note: str = ""
+    #: Resolution of a scanned input per axis ``(x, y)``, dpi (None for a vector page).
+    dpi_xy: tuple[float, float] | None = None
 
     def of_class(self, kind_class: str) -> list[Element]:
         return [e for e in self.elements if e.kind_class == kind_class]

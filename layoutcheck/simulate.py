@@ -4,8 +4,9 @@ A page is rendered with pypdfium2 at ``oversample`` times the scan resolution, t
 shifted with ``cv2.warpAffine`` (bilinear, white outside the page), reduced to the scan
 resolution by area averaging (per axis: a fax's pixels are taller than wide), then degraded:
 fill-in scribbles, halftone tints in boxes, a stamp, faded print, a smooth warp of paper that
-does not lie flat, punch holes, an edge shadow, blur, noise, salt and pepper, JPEG, bitonal
-thresholding, colour (coloured ink on tinted paper) and a feeder's cut-off edge.
+does not lie flat, punch holes, a staple, an edge shadow, a light gradient across the page, blur,
+noise, salt and pepper, JPEG, bitonal thresholding, colour (coloured ink on tinted paper) and a
+feeder's cut-off edge.
 
 The pixel convention is that of :mod:`layoutcheck.extract.raster`: pixel ``(col, row)`` covers
 ``[col, col + 1) x [row, row + 1)``, a continuous pixel coordinate ``p`` is ``p * 72 / dpi``
@@ -55,6 +56,8 @@ class ScanSettings:
     tint: bool = False
     colour: tuple | None = None
     cut: tuple[str, float] | None = None
+    staple: bool = False
+    light_gradient: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -155,6 +158,8 @@ def simulate_scan(
     tint: bool = False,
     colour: tuple | None = None,
     cut: tuple[str, float] | None = None,
+    staple: bool = False,
+    light_gradient: float = 0.0,
 ) -> SimulatedScan:
     """Scan a PDF page in simulation.
 
@@ -206,6 +211,12 @@ def simulate_scan(
     cut : (edge, share), optional
         The feeder cut the image: ``share`` of the page's height (top, bottom) or width (left,
         right) is not on it. The truth pose stays that of the page's content on the image.
+    staple : bool
+        A staple in a top corner's margin: a dark metal strip 12.7 mm long and 0.8 mm wide
+        across the corner at 30 to 60 degrees, with a grey shadow beside it (see :func:`_staple`).
+    light_gradient : float
+        Light falling off across the page in a random direction: the far side is this share
+        darker (0.4: paper at 60 % of its brightness there), ink and paper alike.
 
     Returns
     -------
@@ -221,7 +232,7 @@ def simulate_scan(
                       None if oversample is None else int(oversample), bool(hand), None if dpi_x == dpi_y else dpi_y,
                       None if fade is None else float(fade), float(warp_mm), bool(tint),
                       None if colour is None else tuple(tuple(map(int, c)) for c in colour),
-                      None if cut is None else (str(cut[0]), float(cut[1])))
+                      None if cut is None else (str(cut[0]), float(cut[1])), bool(staple), float(light_gradient))
     rng = np.random.default_rng(seed)
     if oversample is None:
         osx, osy = (max(2, int(math.ceil(600.0 / d))) for d in (dpi_x, dpi_y))
@@ -262,6 +273,10 @@ def simulate_scan(
             c = (int(round(_px(12.0, dpi_x))), int(round(H / 2.0 + _px(dy, dpi_y))))
             axes = (int(round(_px(3.0, dpi_x))), int(round(_px(3.0, dpi_y))))
             cv2.ellipse(img, c, axes, 0.0, 0.0, 360.0, 25.0, -1, lineType=cv2.LINE_AA)
+    if staple:
+        img = _staple(img, (dpi_x, dpi_y), np.random.default_rng([seed, 2]))
+    if light_gradient > 0:
+        img = img * _light_falloff((H, W), float(light_gradient), np.random.default_rng([seed, 3]))
     if edge_shadow:
         xs = np.arange(W, dtype=np.float32) + 0.5
         ys = np.arange(H, dtype=np.float32) + 0.5
@@ -290,6 +305,45 @@ def simulate_scan(
     if cut is not None:
         img, pose = _cut(img, pose, cut, (dpi_x, dpi_y))
     return SimulatedScan(img, dpi_x, pose, st, page_pt, None if dpi_x == dpi_y else dpi_y, warp_max)
+
+
+def _staple(img: np.ndarray, dpi: tuple[float, float], rng: np.random.Generator) -> np.ndarray:
+    """A staple's crown across a top corner: its centre 5 to 7 mm from both edges, at 30 to 60
+    degrees to the edge, 12.7 mm long and 0.8 mm wide (a standard office staple, from memory),
+    nearly black, with a grey shadow 0.6 mm to one side (lit from one side, as a scanner lamp
+    is). Harsher than real: a bright metal crown often scans light grey."""
+    h, w = img.shape[:2]
+    right = bool(rng.integers(2))
+    cx_mm, cy_mm = rng.uniform(5.0, 7.0, 2)
+    turn = math.radians(rng.uniform(30.0, 60.0))
+    # Across the corner: from lower left to upper right in the left corner, mirrored in the right.
+    ux, uy = (math.cos(turn), -math.sin(turn)) if not right else (math.cos(turn), math.sin(turn))
+    half = 12.7 / 2.0
+    sx, sy = dpi[0] / MM_PER_INCH, dpi[1] / MM_PER_INCH
+    out = np.ascontiguousarray(img)
+    for off, grey, width in ((0.6, 150.0, 1.2), (0.0, 35.0, 0.8)):  # shadow first, metal on top
+        cx = (w - cx_mm * sx if right else cx_mm * sx) + off * sx
+        cy = cy_mm * sy + off * sy
+        a = (cx - ux * half * sx, cy - uy * half * sy)
+        b = (cx + ux * half * sx, cy + uy * half * sy)
+        # Sub-pixel end points (4 fractional bits) and a width of at least one pixel.
+        pts = [(int(round(p[0] * 16)), int(round(p[1] * 16))) for p in (a, b)]
+        thick = max(1, int(round(width * (sx + sy) / 2.0)))
+        layer = np.zeros((h, w), np.float32)
+        cv2.line(layer, pts[0], pts[1], 1.0, thick, cv2.LINE_AA, shift=4)
+        out = out * (1.0 - layer) + np.minimum(out, grey) * layer
+    return out.astype(np.float32)
+
+
+def _light_falloff(shape: tuple[int, int], share: float, rng: np.random.Generator) -> np.ndarray:
+    """Brightness over the image, 1 on one side falling linearly to ``1 - share`` on the far side,
+    along a random direction."""
+    h, w = shape
+    t = rng.uniform(0.0, 2.0 * math.pi)
+    ys, xs = np.mgrid[0:h, 0:w].astype(np.float32)
+    along = (xs + 0.5) / w * math.cos(t) + (ys + 0.5) / h * math.sin(t)
+    along = (along - along.min()) / max(float(np.ptp(along)), 1e-9)
+    return (1.0 - share * along).astype(np.float32)
 
 
 def _cut(img: np.ndarray, pose: Pose, cut: tuple[str, float], dpi: tuple[float, float]):

@@ -866,11 +866,13 @@ class PageContrast:
 
     #: Grey of the paper (the median pixel: a form inks a few percent of the sheet).
     paper: float
-    #: Grey of the ink's dark core (10th percentile of the pixels counted as ink).
+    #: Grey of the ink's dark core: the paper's grey less the 90th percentile of how much darker
+    #: than the paper around it the pixels counted as ink are.
     ink: float
-    #: Spread of the paper's grey (1.4826 x its median absolute deviation: a Gaussian's sigma).
+    #: Spread of the paper's grey about its level where it lies (1.4826 x the median absolute
+    #: deviation: a Gaussian's sigma).
     noise: float
-    #: Share of the sheet darker than the paper by more than ``max(20, 5 x noise)`` levels.
+    #: Share of the sheet darker than the paper around it by more than ``max(20, 5 x noise)`` levels.
     ink_share: float
     #: Share of the sheet below mid-grey (128).
     dark_share: float
@@ -889,13 +891,36 @@ def page_contrast(image: np.ndarray) -> PageContrast:
     and light dropout colours count as ink, a blank sheet with noise does not.
     """
     step = max(1, int(np.sqrt(image.size / 250_000)))
-    sample = image[::step, ::step].astype(np.float32).ravel()
+    grid = image[::step, ::step].astype(np.float32)
+    sample = grid.ravel()
     paper = float(np.median(sample))
-    noise = 1.4826 * float(np.median(np.abs(sample - paper)))
-    ink_mask = sample < paper - max(MIN_INK_CONTRAST, 5.0 * noise)
+    # Ink is measured against the paper where it lies: light falling off across the sheet (or a
+    # shadow) spreads the paper's grey far more than its noise does.
+    below = (paper_level(grid) - grid).ravel()
+    noise = 1.4826 * float(np.median(np.abs(below - np.median(below))))
+    ink_mask = below > max(MIN_INK_CONTRAST, 5.0 * noise)
     ink_share = float(ink_mask.mean())
-    ink = float(np.percentile(sample[ink_mask], 10)) if ink_mask.any() else paper
+    ink = paper - float(np.percentile(below[ink_mask], 90)) if ink_mask.any() else paper
     return PageContrast(paper, ink, noise, ink_share, float((sample < 128).mean()))
+
+
+#: Side of the blocks over which :func:`paper_level` takes the paper's grey, as a share of the
+#: page's longer side: large enough that a dense table leaves most of a block paper.
+PAPER_BLOCK_SHARE = 1.0 / 16.0
+
+
+def paper_level(grey: np.ndarray) -> np.ndarray:
+    """The paper's grey under every pixel: the median of each block (:data:`PAPER_BLOCK_SHARE`
+    of the page), interpolated between block centres (bilinear, OpenCV)."""
+    import cv2
+
+    h, w = grey.shape
+    b = max(8, int(round(max(h, w) * PAPER_BLOCK_SHARE)))
+    ny, nx = max(1, int(np.ceil(h / b))), max(1, int(np.ceil(w / b)))
+    pad = np.pad(grey, ((0, ny * b - h), (0, nx * b - w)), mode="edge")
+    med = np.median(pad.reshape(ny, b, nx, b).transpose(0, 2, 1, 3).reshape(ny, nx, b * b), axis=2)
+    full = cv2.resize(med.astype(np.float32), (nx * b, ny * b), interpolation=cv2.INTER_LINEAR)
+    return full[:h, :w]
 
 
 def page_content_problem(image: np.ndarray, contrast: PageContrast | None = None) -> str | None:

@@ -333,7 +333,7 @@ def build_graph(template: Template, neighbours: int = 4) -> nx.DiGraph:
 
 # -- learning -------------------------------------------------------------------------------------
 def match_raster_to_vector(raster: Iterable[Element], vector: Sequence[Element], tol: float = 3.0) -> list[Element]:
-    """Give raster elements the id and caption of the vector element drawn in the same place.
+    """Give raster elements the id, caption and stroke of the vector element drawn in the same place.
 
     Unmatched raster elements keep an id of their own, prefixed ``r-``, and take the caption of
     the vector label that overlaps them, if any.
@@ -352,7 +352,7 @@ def match_raster_to_vector(raster: Iterable[Element], vector: Sequence[Element],
         if best is not None:
             used.add(best.id)
             out.append(r.replace(id=best.id, kind=best.kind if best.kind_class == r.kind_class else r.kind,
-                                 caption=best.caption, text=best.text))
+                                 caption=best.caption, text=best.text, stroke=best.stroke))
         else:
             cap = None
             for v in vec:

@@ -237,11 +237,17 @@ def assemble(
     v_spans: dict[int, list] = {j: [] for j in range(len(v))}
     seen = set()
 
-    def emit(kind, cx, cy, w, hgt, text=None):
+    def emit(kind, cx, cy, w, hgt, stroke, text=None):
         c = _rotate(np.array([[cx, cy]]), skew_deg)[0]
         ang, ww, hh = normalise_angle(skew_deg, w, hgt)
+        # A drawn width is exact; one measured on a scan is whole pixels at best, too coarse to
+        # say which scans could show the element (see layoutcheck.check.too_thin).
+        stroke = tuple(None if v is None else float(v) for v in stroke) if source == "vector" else None
+        a = (skew_deg + 90.0) % 180.0 - 90.0
+        if stroke is not None and (a > 45.0 or a <= -45.0):
+            stroke = stroke[::-1]  # turned a quarter: its upright sides are now level
         out.append(Element(id=f"{kind}-new", kind=kind, frame=frame_from_center(c[0], c[1], ww, hh),
-                           angle=ang, text=text, source=source))
+                           angle=ang, text=text, source=source, stroke=stroke))
 
     for i, j, i2, j2 in cells:
         x0, x1, top, bottom = v[j, 0], v[j2, 0], h[i, 0], h[i2, 0]
@@ -256,14 +262,15 @@ def assemble(
         w, hgt = x1 - x0, bottom - top
         square = 0.75 <= w / hgt <= 1.33
         kind = "checkbox" if square and max(w, hgt) <= settings.checkbox_max else "box"
-        emit(kind, (x0 + x1) / 2, (top + bottom) / 2, w, hgt)
+        emit(kind, (x0 + x1) / 2, (top + bottom) / 2, w, hgt,
+             (min(v[j, 3], v[j2, 3]), min(h[i, 3], h[i2, 3])))
 
     for i, (y, lo, hi, wd) in enumerate(h):
         if hi - lo >= settings.min_length and _covered(lo, hi, _grown(h_spans[i], settings.meet)) < settings.covered_share:
-            emit("hline", (lo + hi) / 2, y, hi - lo, wd)
+            emit("hline", (lo + hi) / 2, y, hi - lo, wd, (None, wd))
     for j, (x, lo, hi, wd) in enumerate(v):
         if hi - lo >= settings.min_length and _covered(lo, hi, _grown(v_spans[j], settings.meet)) < settings.covered_share:
-            emit("vline", x, (lo + hi) / 2, wd, hi - lo)
+            emit("vline", x, (lo + hi) / 2, wd, hi - lo, (wd, None))
     for k in np.flatnonzero(is_o):
         if length[keep][k] < settings.min_length:
             continue
@@ -272,7 +279,7 @@ def assemble(
         ln = math.hypot(x1 - x0, y1 - y0)
         na, w, hgt = normalise_angle(ang, ln, wid[k])
         out.append(Element(id="line-new", kind="line", frame=frame_from_center((x0 + x1) / 2, (y0 + y1) / 2, w, hgt),
-                           angle=na, source=source))
+                           angle=na, source=source, stroke=(float(wid[k]),) * 2 if source == "vector" else None))
     return out, float(skew_deg)
 
 

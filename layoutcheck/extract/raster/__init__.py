@@ -95,7 +95,8 @@ def extract_raster(page: RasterPage, settings: RasterSettings = RasterSettings()
     """
     elements, detail = extract_raster_detail(page, settings)
     note = f"raster {page.dpi:g} dpi, {detail.method}"
-    return PageElements(page.width, page.height, tuple(assign_ids(elements)), source="raster", note=note)
+    return PageElements(page.width, page.height, tuple(assign_ids(elements)), source="raster", note=note,
+                         dpi_xy=page.dpi_xy)
 
 
 def extract_raster_detail(page: RasterPage, settings: RasterSettings = RasterSettings()) -> tuple[list[Element], RasterDetail]:
@@ -127,7 +128,7 @@ def extract_raster_detail(page: RasterPage, settings: RasterSettings = RasterSet
     seg, wid = seg * to_pt, wid * to_pt
     seg, wid = _drop_border(seg, wid, page, settings.border_mm)
     seg, wid, fine = _on_axis(seg, wid, skew, settings.assembly.axis_tolerance_deg)
-    shapes = _find_boxes(seg, wid, fine, settings)
+    shapes = _find_boxes(seg, wid, fine, settings, small_bin, ddpi)
 
     # Ink that is not a rule.
     rules = cv2.dilate(runs.view(np.uint8), np.ones((3, 3), np.uint8)).astype(bool)

@@ -4,21 +4,33 @@ from __future__ import annotations
 
 import numpy as np
 
-from ...elements import MM_PER_INCH, POINTS_PER_INCH, Element
+from ...elements import MM_PER_INCH, POINTS_PER_INCH, Element, outline
 from ..assemble import _rotate, assemble
 from .settings import RasterSettings
 
 
-def _find_boxes(seg: np.ndarray, wid: np.ndarray, skew: float, settings: RasterSettings) -> list[Element]:
-    """Boxes, checkboxes and rules from fitted segments and widths (points), ``skew`` the fine one."""
+def _find_boxes(seg: np.ndarray, wid: np.ndarray, skew: float, settings: RasterSettings,
+                ink: np.ndarray | None = None, dpi: float | None = None) -> list[Element]:
+    """Boxes, checkboxes and rules from fitted segments and widths (points), ``skew`` the fine one.
+
+    With the page's ink at ``dpi``, a candidate drawn by a letter of text is no box
+    (:func:`glyph_outlines`).
+    """
     shapes, _ = assemble(seg, wid, source="raster", settings=settings.assembly, skew_deg=skew)
     # A short rule that closes no box is as likely a letter's stroke: only boxes keep short sides.
     shortest = settings.long_rule_mm * POINTS_PER_INCH / MM_PER_INCH
     shapes = [e for e in shapes if e.kind not in ("hline", "vline", "line") or max(e.size) >= shortest]
     smallest = settings.min_box_mm * POINTS_PER_INCH / MM_PER_INCH
-    return [e for e in shapes if e.kind not in ("box", "checkbox")
-            or (max(e.size) >= smallest
-                and not is_glyph_box(e.frame, side_width(e.frame, seg, wid, skew), settings.min_box_inside))]
+    shapes = [e for e in shapes if e.kind not in ("box", "checkbox")
+              or (max(e.size) >= smallest
+                  and not is_glyph_box(e.frame, side_width(e.frame, seg, wid, skew), settings.min_box_inside))]
+    if ink is None:
+        return shapes
+    boxes = [k for k, e in enumerate(shapes) if e.kind in ("box", "checkbox")]
+    sides = np.array([side_width(shapes[k].frame, seg, wid, skew) for k in boxes])
+    glyph = glyph_outlines([shapes[k] for k in boxes], sides, ink, dpi, settings)
+    drop = {k for k, g in zip(boxes, glyph) if g}
+    return [e for k, e in enumerate(shapes) if k not in drop]
 
 
 def side_width(frame, seg: np.ndarray, wid: np.ndarray, skew: float, near: float = 1.5) -> float:
@@ -50,3 +62,93 @@ def is_glyph_box(frame, side: float, min_inside: float) -> bool:
     x0, top, x1, bottom = frame
     inside = min(x1 - x0, bottom - top) - side
     return bool(side > 0 and inside < min_inside * side)
+
+
+def glyph_outlines(boxes: list[Element], sides: np.ndarray, ink: np.ndarray, dpi: float,
+                   settings: RasterSettings) -> np.ndarray:
+    """Which box candidates lie inside a text component: drawn by a letter, not by rules.
+
+    Parameters
+    ----------
+    boxes : list of Element
+        Box and checkbox candidates (points).
+    sides : (N,) array
+        Width of each candidate's sides, points (:func:`side_width`).
+    ink : (H, W) bool array
+        The page's ink at ``dpi`` (its own orientation).
+
+    Returns
+    -------
+    (N,) bool array
+        True for a candidate whose outline is part of a connected piece of ink that is no
+        larger than a letter (:attr:`RasterSettings.max_letter_mm`), that looks like a letter
+        rather than a box, either
+
+        - more than the outline: a share of its ink (:attr:`RasterSettings.letter_off_outline`)
+          lies off the band of the candidate's four sides (a letter's other bowl, its stem), or
+        - drawn heavy for a box: sides over :attr:`RasterSettings.letter_stroke` of its inside
+          (the ring of an O or a D; a checkbox's rules are a few hundredths of its side),
+
+        and that stands in a line of text: beside a piece of ink of about its own height (0.8 to
+        1.25 times) on the same line, no farther off than that height (the next letter of a word:
+        letters of a word stand closer than their height, common practice), which is not itself
+        the clean outline of a candidate (a row of checkboxes, heavy or blurred, is no word),
+        unless the candidate is both heavy and more than its outline (a B beside an O). A
+        checkbox beside its caption is a clean, light outline among letters smaller than itself.
+    """
+    import cv2
+
+    out = np.zeros(len(boxes), bool)
+    if not boxes or not ink.any():
+        return out
+    n, labels, stats, _ = cv2.connectedComponentsWithStats(ink.view(np.uint8), connectivity=8)
+    k = dpi / POINTS_PER_INCH
+    bx, by, bw, bh, area = (stats[:, i].astype(float) for i in range(5))
+    letter = settings.max_letter_mm * dpi / MM_PER_INCH
+    h_img, w_img = ink.shape
+    t = np.linspace(0.0, 1.0, 16)
+    own = np.zeros(len(boxes), int)
+    like = np.zeros(len(boxes), bool)
+    clean = np.zeros(len(boxes), bool)
+    heavy = np.zeros(len(boxes), bool)
+    for j, e in enumerate(boxes):
+        c = outline(e) * k
+        pts = np.concatenate([c[i] + np.outer(t, c[(i + 1) % 4] - c[i]) for i in range(4)])
+        hit = labels[np.clip(np.floor(pts[:, 1]).astype(int), 0, h_img - 1),
+                     np.clip(np.floor(pts[:, 0]).astype(int), 0, w_img - 1)]
+        hit = hit[hit > 0]
+        if not len(hit):
+            continue
+        lab = own[j] = int(np.bincount(hit).argmax())
+        if max(bw[lab], bh[lab]) > letter:
+            clean[j] = True  # ruling larger than any letter: no word, and no letter beside one
+            continue
+        heavy[j] = sides[j] > settings.letter_stroke * (min(e.size) - sides[j])
+        # The band of the four sides, in the component's own window.
+        x0, y0, w, h = (int(v) for v in stats[lab, :4])
+        band = np.zeros((h, w), np.uint8)
+        poly = np.round((c - [x0, y0]) * 16).astype(np.int32)
+        cv2.polylines(band, [poly], True, 1, max(1, int(round(sides[j] * k)) + 3), cv2.LINE_8, shift=4)
+        off = np.count_nonzero((labels[y0:y0 + h, x0:x0 + w] == lab) & ~band.astype(bool))
+        like[j] = heavy[j] or off >= settings.letter_off_outline * area[lab]
+        # A clean outline: hardly any ink off its sides (a third of the share above: noise, and
+        # the rounding of corners).
+        clean[j] = off < settings.letter_off_outline / 3.0 * area[lab]
+    rings = np.zeros(n, bool)
+    rings[own[(own > 0) & clean]] = True
+    rings[0] = True
+    for j in np.flatnonzero(like):
+        lab = own[j]
+        # A heavy letter with more than its outline (a B) may stand beside a ring (an O).
+        others = rings if clean[j] or not heavy[j] else np.arange(n) == 0
+        # A neighbour on the same line (rows, or columns on a page turned a quarter).
+        for pos, size, cpos, csize in ((bx, bw, by, bh), (by, bh, bx, bw)):
+            hgt = csize[lab]
+            near = ((csize >= 0.8 * hgt) & (csize <= 1.25 * hgt)
+                    & (np.minimum(cpos + csize, cpos[lab] + hgt) - np.maximum(cpos, cpos[lab]) >= 0.5 * hgt)
+                    & (np.maximum(pos - (pos[lab] + size[lab]), pos[lab] - (pos + size)) <= hgt) & ~others)
+            near[lab] = False
+            if near.any():
+                out[j] = True
+                break
+    return out

@@ -39,7 +39,9 @@ def _find_labels(comps, frame: _Frame, ddpi, to_pt, settings: RasterSettings, ma
     big = px(settings.max_glyph_mm, ddpi)
     border = px(settings.border_mm, ddpi) + 1
     solid = (area >= 0.7 * w * h) & (np.minimum(w, h) >= px(2.0, ddpi))  # holes, marks, filled areas
-    keep = ((np.maximum(w, h) >= max(speck, 1.5)) & (np.maximum(w, h) <= big) & ~solid
+    thin, long = (px(v, ddpi) for v in settings.rule_piece_mm)
+    piece = (np.minimum(w, h) <= thin) & (np.maximum(w, h) >= long)
+    keep = ((np.maximum(w, h) >= max(speck, 1.5)) & (np.maximum(w, h) <= big) & ~solid & ~piece
             & (x > border) & (y > border) & (x + w < uw - border) & (y + h < uh - border))
     if not keep.any():
         return []

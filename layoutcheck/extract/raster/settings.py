@@ -50,10 +50,25 @@ class RasterSettings:
     #: Boxes smaller than this on both sides are letters' counters too, mm (common practice:
     #: checkboxes are 3 to 5 mm; the counter of a 14 pt letter is under 2 mm).
     min_box_mm: float = 2.2
+    #: A connected piece of ink larger than this on either side is no letter, mm (type of up to
+    #: about 40 pt: capitals of 10 mm, common practice).
+    max_letter_mm: float = 12.0
+    #: A piece of ink with at least this share of it off a box candidate's four sides is more
+    #: than the candidate's outline (a letter around its counter, see ``glyph_outlines``).
+    letter_off_outline: float = 0.15
+    #: A box candidate with sides over this share of its inside is drawn heavy for a box: the
+    #: stroke of a letter is a tenth of its height and more (common practice: Helvetica's is
+    #: about 0.09 em, its bold 0.14 em); a checkbox's rules are a few hundredths of its side.
+    letter_stroke: float = 0.1
     #: Components smaller than this on both sides are speckle, mm.
     speckle_mm: float = 0.3
     #: Components larger than this on either side are not printed characters, mm.
     max_glyph_mm: float = 15.0
+    #: A component at most the first this thick and at least the second long, mm, is a piece of
+    #: a rule (a thin rule that a coarse scan broke into dashes), not a character: letters of
+    #: print are taller than 1 mm and a hyphen is shorter than 3 mm (common practice: type of
+    #: 6 pt and up has capitals over 1.5 mm tall).
+    rule_piece_mm: tuple[float, float] = (0.8, 3.0)
     #: A solid square with a side in this range is a registration mark, mm.
     mark_side_mm: tuple[float, float] = (2.5, 12.0)
     #: Ink within this distance of the image border is left out (scanner edges and shadows), mm.

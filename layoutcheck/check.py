@@ -421,7 +421,7 @@ def camera_settings(settings: CheckSettings, sheet_found: bool = False) -> Check
     from dataclasses import replace
 
     extra = {"scale_range": SHEET_SCALE_RANGE} if sheet_found else {}
-    return replace(settings, solver=replace(settings.solver, perspective_min=0.0, grow=True, max_anisotropy=0.15,
+    return replace(settings, solver=replace(settings.solver, perspective_min=0.0, grow=True, max_anisotropy=0.15, spread=True,
                                             text_scale=False, **extra))
 
 

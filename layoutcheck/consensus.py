@@ -110,6 +110,9 @@ class SolverSettings:
     #: Another element this close to a rule's end meets it (about 1.5 mm): the rule's extent
     #: there is not judged (see :func:`free_rule_ends`).
     rule_meet: float = 4.25
+    #: Spread the pose's weight over the page (see :func:`spread_weights`): a page whose paper
+    #: bends is fitted as a whole, not to its densest table (camera captures set it).
+    spread: bool = False
 
 
 @dataclass(frozen=True)
@@ -671,11 +674,40 @@ def assign(pred: np.ndarray, inp_centers: np.ndarray, ti: np.ndarray, ii: np.nda
     return out
 
 
+#: Cells per side of the grid over which :func:`spread_weights` evens the weight out, and the
+#: elements per cell that count in full.
+SPREAD_CELLS = 8
+SPREAD_PER_CELL = 3
+
+
+def spread_weights(points: np.ndarray, w: np.ndarray, cells: int = SPREAD_CELLS,
+                   per_cell: int = SPREAD_PER_CELL) -> np.ndarray:
+    """Weights evened out over the area the points cover.
+
+    The points' bounding box is cut into ``cells`` x ``cells`` cells; in a cell holding ``n``
+    points each weight is multiplied by ``min(1, per_cell / n)``. A table of a hundred boxes then
+    counts about as much as a few elements elsewhere: when the paper bends, no pose fits every
+    part, and the pose fitted over the whole form (its bend left to the residual field) is not
+    pulled towards the densest part, which would tilt it at the page's far edges.
+    """
+    pts = np.asarray(points, float).reshape(-1, 2)
+    if len(pts) == 0:
+        return np.asarray(w, float)
+    lo, hi = pts.min(0), pts.max(0)
+    ij = np.clip(((pts - lo) / np.maximum(hi - lo, 1e-9) * cells).astype(int), 0, cells - 1)
+    cell = ij[:, 0] * cells + ij[:, 1]
+    n = np.bincount(cell, minlength=cells * cells)[cell]
+    return np.asarray(w, float) * np.minimum(1.0, per_cell / n)
+
+
 def fit_pose(src: np.ndarray, dst: np.ndarray, w: np.ndarray, settings: SolverSettings,
              projective: bool = True) -> Pose | None:
     """Weighted similarity; affine when the x and y scales measurably differ; projective when
     the perspective is measurable and explains the elements clearly better (model choice by the
-    share of weighted squared residual removed, as between similarity and affine)."""
+    share of weighted squared residual removed, as between similarity and affine). With
+    ``settings.spread`` the weights are evened out over the page first (:func:`spread_weights`)."""
+    if settings.spread:
+        w = spread_weights(src, w)
     sim = Pose.from_pairs(src, dst, "similarity", w)
     if not sim:
         return None

@@ -350,3 +350,84 @@ def in_template_frame(page: RasterPage, pose: Pose, size_pt: tuple[float, float]
     margin = max(1, int(round(EDGE_MARGIN_MM * dpi / 25.4)))
     flat[:margin], flat[-margin:], flat[:, :margin], flat[:, -margin:] = 255, 255, 255, 255
     return Capture("camera", RasterPage(page.source, page.page, flat, dpi, False), pose, None)
+
+
+#: A side of a box, or a rule, shows ink where the darkest pixel across it (within
+#: :data:`PROBE_REACH_MM`) is this many grey levels under the paper of the flattened page (240).
+PROBE_INK = 40.0
+#: How far across a side the probe looks, mm: the pose and the bend are good to about 1 mm.
+PROBE_REACH_MM = 1.5
+#: Share of a side's middle (its ends left out: corners, ticks) that must show ink for the side
+#: to be there, and that may show ink for it to be absent.
+PROBE_PRESENT = 0.6
+PROBE_ABSENT = 0.25
+#: Fewest pixels a box's shorter side must span at the photo's worst resolution for its size to
+#: be judged there (a third off a side of 20 pixels is 7 pixels; finer it blurs into noise).
+LEGIBLE_SIDE_PX = 20.0
+
+
+def side_ink(grey: np.ndarray, dpi: float, p: np.ndarray, q: np.ndarray, samples: int = 24) -> float:
+    """Share of the middle of segment ``p``-``q`` (points on ``grey``, flattened light, paper
+    240) that holds ink within :data:`PROBE_REACH_MM` across it (``cv2.remap``, bilinear)."""
+    k = dpi / POINTS_PER_INCH
+    p, q = np.asarray(p, float) * k, np.asarray(q, float) * k
+    length = float(np.hypot(*(q - p)))
+    if length < 1.0:
+        return 0.0
+    u = (q - p) / length
+    n = np.array([-u[1], u[0]])
+    reach = PROBE_REACH_MM * dpi / 25.4
+    t = np.linspace(0.15, 0.85, samples)
+    s = np.linspace(-reach, reach, max(3, int(2 * reach) + 1))
+    pts = p[None, None, :] + (t[:, None, None] * length) * u + s[None, :, None] * n  # (samples, across, 2)
+    # Continuous coordinates -> OpenCV's pixel-centre ones.
+    mx = (pts[..., 0] - 0.5).astype(np.float32)
+    my = (pts[..., 1] - 0.5).astype(np.float32)
+    strip = cv2.remap(grey, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=255)
+    return float((strip.min(axis=1) < 240.0 - PROBE_INK).mean())
+
+
+def ink_probe(grey: np.ndarray, dpi: float, element, pose: Pose) -> str:
+    """Whether a box or rule the extractor did not find is printed where ``pose`` puts it.
+
+    Returns ``"absent"`` when no side of it shows ink (each side's middle is paper on at least
+    three quarters of its length), ``"present"`` when every side shows ink along most of it, and
+    ``"unclear"`` otherwise (handwriting across it, print too faint for the resolution).
+    """
+    from .elements import outline
+
+    c = pose.apply(outline(element))
+    if element.kind in ("box", "checkbox"):
+        sides = [side_ink(grey, dpi, c[i], c[(i + 1) % 4]) for i in range(4)]
+    else:
+        long_first = np.hypot(*(c[1] - c[0])) >= np.hypot(*(c[3] - c[0]))
+        a, b = ((c[0] + c[3]) / 2, (c[1] + c[2]) / 2) if long_first else ((c[0] + c[1]) / 2, (c[3] + c[2]) / 2)
+        sides = [side_ink(grey, dpi, a, b)]
+    if all(v <= PROBE_ABSENT for v in sides):
+        return "absent"
+    if all(v >= PROBE_PRESENT for v in sides):
+        return "present"
+    return "unclear"
+
+
+def legible(match, template_elements, grey: np.ndarray, dpi: float, worst_dpi: float) -> frozenset:
+    """Ids of the missing and resized elements of a photo too small to read that are judged all
+    the same, because the photo shows them plainly (see :func:`layoutcheck.verdict.too_small`).
+
+    ``match`` is on the page ``grey`` (its pose: template points -> points of ``grey``). A box
+    resized counts when its shorter side spans :data:`LEGIBLE_SIDE_PX` pixels at ``worst_dpi``;
+    an element missing counts when the place the pose puts it shows paper on every side
+    (:func:`ink_probe`), so a box the extractor lost in the blur is never called missing.
+    """
+    by_id = {e.id: e for e in template_elements}
+    out = set()
+    for r in match.elements:
+        e = by_id.get(r.id)
+        if e is None or not r.judged or e.kind not in ("box", "checkbox", "hline", "vline"):
+            continue
+        if r.status == "resized" and e.kind in ("box", "checkbox"):
+            if min(e.size) / POINTS_PER_INCH * worst_dpi >= LEGIBLE_SIDE_PX:
+                out.add(r.id)
+        elif r.status == "missing" and ink_probe(grey, dpi, e, match.pose) == "absent":
+            out.add(r.id)
+    return frozenset(out)

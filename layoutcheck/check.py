@@ -444,6 +444,7 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
     read = page if capture is None else capture.page
     if isinstance(read, RasterPage) and match.pose is not None:
         found, match = look_again(read, found, tp, match, solve_settings)
+    on_read = match
     if capture is not None and match.pose is not None:
         from dataclasses import replace
 
@@ -452,12 +453,17 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
     input_size = (found.width, found.height) if capture is None else (page.width, page.height)
     camera = camera or (match.pose is not None and match.pose.is_projective)
     readability = None
+    plain: frozenset = frozenset()
     if camera and match.pose is not None and isinstance(page, RasterPage):
+        from .capture import legible
         from .capture import readability as measure
 
         readability = measure(match.pose, (tp.width, tp.height), page.dpi)
+        if too_small(readability, settings.tolerances) and isinstance(read, RasterPage):
+            # Too small to read as a whole, yet a box moved, gone or shrunk may still show plainly.
+            plain = legible(on_read, tp.elements_for(found.source), read.image, read.dpi, readability.worst_dpi)
     verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size, zones=tp.zones,
-                              camera=camera, readability=readability)
+                              camera=camera, readability=readability, legible=plain)
     recognised = verdict != "unrecognised"
     if recognised:
         findings += routing_findings(index, ident, found, settings)
@@ -475,7 +481,7 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         # Largest displacement of the smooth residual field (paper not flat), mm.
         "warp_mm": round(match.field.largest_mm, 2) if recognised and match.field is not None else None,
         "offending": offending(match, ("missing", "resized") if camera and too_small(readability, settings.tolerances)
-                               else ()) if recognised else [],
+                               else (), plain) if recognised else [],
         "sections": [
             {"id": s.id, "name": s.name, "status": s.status, "offset_mm": [round(v, 2) for v in s.offset_mm],
              "support": round(s.support, 4), "elements": s.elements}

@@ -387,8 +387,9 @@ def side_ink(grey: np.ndarray, dpi: float, p: np.ndarray, q: np.ndarray, samples
     return float((strip.min(axis=1) < 240.0 - PROBE_INK).mean())
 
 
-def ink_probe(grey: np.ndarray, dpi: float, element, pose: Pose) -> str:
-    """Whether a box or rule the extractor did not find is printed where ``pose`` puts it.
+def ink_probe(grey: np.ndarray, dpi: float, element, pose: Pose, shift=(0.0, 0.0), scale: float = 1.0) -> str:
+    """Whether a box or rule is printed where ``pose`` puts it (moved by ``shift`` and scaled by
+    ``scale`` about its centre first, template points).
 
     Returns ``"absent"`` when no side of it shows ink (each side's middle is paper on at least
     three quarters of its length), ``"present"`` when every side shows ink along most of it, and
@@ -396,7 +397,8 @@ def ink_probe(grey: np.ndarray, dpi: float, element, pose: Pose) -> str:
     """
     from .elements import outline
 
-    c = pose.apply(outline(element))
+    c0 = np.asarray(element.center, float)
+    c = pose.apply((outline(element) - c0) * scale + c0 + np.asarray(shift, float))
     if element.kind in ("box", "checkbox"):
         sides = [side_ink(grey, dpi, c[i], c[(i + 1) % 4]) for i in range(4)]
     else:
@@ -410,24 +412,116 @@ def ink_probe(grey: np.ndarray, dpi: float, element, pose: Pose) -> str:
     return "unclear"
 
 
-def legible(match, template_elements, grey: np.ndarray, dpi: float, worst_dpi: float) -> frozenset:
-    """Ids of the missing and resized elements of a photo too small to read that are judged all
-    the same, because the photo shows them plainly (see :func:`layoutcheck.verdict.too_small`).
+#: Scales tried for a box shrunk or grown about its centre (see :func:`seek_box`).
+SEEK_SCALES = (0.5, 0.55, 0.6, 0.65, 0.7, 0.75, 0.8, 0.85, 1.2, 1.3, 1.4, 1.5)
 
-    ``match`` is on the page ``grey`` (its pose: template points -> points of ``grey``). A box
-    resized counts when its shorter side spans :data:`LEGIBLE_SIDE_PX` pixels at ``worst_dpi``;
-    an element missing counts when the place the pose puts it shows paper on every side
-    (:func:`ink_probe`), so a box the extractor lost in the blur is never called missing.
+
+def seek_box(grey: np.ndarray, dpi: float, element, pose: Pose, others, reach: float, tol: float):
+    """Where a box the extractor did not find is printed, by its outline on the grey image.
+
+    First about its own centre at the sizes of :data:`SEEK_SCALES`; then, at its own size, anywhere
+    within ``reach`` points of its place (normalised cross-correlation of its outline with the
+    ink, ``cv2.matchTemplate``). A place counts only when every side of the box shows ink there
+    (:func:`ink_probe`), and a place farther than ``tol`` points only when no other template box
+    of about its size (``others``: their centres and sizes, template points) is expected there.
+
+    Returns ``("resized", ratio)``, ``("moved", (dx, dy) template points)`` or None.
     """
+    for sc in SEEK_SCALES:
+        if ink_probe(grey, dpi, element, pose, scale=sc) == "present":
+            return "resized", sc
+    k = dpi / POINTS_PER_INCH
+    from .elements import outline
+
+    c = pose.apply(outline(element)) * k
+    r = int(np.ceil(reach * k))
+    lo = np.floor(c.min(0)).astype(int) - 2
+    hi = np.ceil(c.max(0)).astype(int) + 2
+    x0, y0 = max(0, lo[0] - r), max(0, lo[1] - r)
+    x1, y1 = min(grey.shape[1], hi[0] + r), min(grey.shape[0], hi[1] + r)
+    kw, kh = hi[0] - lo[0], hi[1] - lo[1]
+    if x1 - x0 <= kw or y1 - y0 <= kh or kw < 4 or kh < 4:
+        return None
+    ink = np.clip(240.0 - grey[y0:y1, x0:x1].astype(np.float32), 0.0, None)
+    kernel = np.zeros((kh, kw), np.float32)
+    cv2.polylines(kernel, [np.round(c - lo).astype(np.int32).reshape(-1, 1, 2)], True, 1.0,
+                  max(1, int(round(0.3 * dpi / 25.4))))
+    score = cv2.matchTemplate(ink, kernel, cv2.TM_CCOEFF_NORMED)
+    # The box at its own place, in the window's coordinates; its own place is ruled out.
+    own = np.array([lo[0] - x0, lo[1] - y0], float)
+    yy, xx = np.mgrid[0:score.shape[0], 0:score.shape[1]]
+    score[np.hypot(xx - own[0], yy - own[1]) <= tol * k] = -1.0
+    inv = pose.inverse()
+    centre = np.asarray(element.center, float)
+    size = np.asarray(element.size, float)
+    for _ in range(3):
+        j = int(np.argmax(score))
+        py, px_ = divmod(j, score.shape[1])
+        if score[py, px_] <= 0.3:
+            return None
+        d_px = np.array([px_, py], float) - own
+        moved_to = inv.apply(pose.apply(centre[None]) + d_px / k)[0]
+        shift = moved_to - centre
+        taken = any(np.hypot(*(np.asarray(oc) - moved_to)) <= tol and np.all(np.abs(np.asarray(os_) / size - 1) <= 0.1)
+                    for oc, os_ in others)
+        if not taken and ink_probe(grey, dpi, element, pose, shift=shift) == "present":
+            return "moved", (float(shift[0]), float(shift[1]))
+        score[max(0, py - 3):py + 4, max(0, px_ - 3):px_ + 4] = -1.0
+    return None
+
+
+def legible(match, template_elements, grey: np.ndarray, dpi: float, worst_dpi: float, tol: float = 5.67,
+            reach: float = 70.9):
+    """The offending elements of a photo too small to read that are judged all the same, because
+    the photo shows the fault plainly (see :func:`layoutcheck.verdict.too_small`).
+
+    ``match`` is on the page ``grey`` (its pose: template points -> points of ``grey``). At such
+    a resolution the extractor loses thin rules, so two boxes merge into one and a box goes
+    unfound; what it reports is checked on the grey image at the place the pose puts the
+    element (:func:`ink_probe`). A box resized counts when its shorter side spans
+    :data:`LEGIBLE_SIDE_PX` pixels at ``worst_dpi``; an element moved when its place does not show
+    it whole; an element missing when its place shows paper on every side, or when the box is
+    found whole nearby, shrunk, grown or moved (:func:`seek_box`, within ``reach`` points; farther
+    than ``tol`` is moved), it is said so instead.
+
+    Returns ``(elements, ids)``: the match's element results (those found by the seeking with
+    their new status) and the ids judged.
+    """
+    from dataclasses import replace
+
+    from .elements import MM_PER_POINT
+
     by_id = {e.id: e for e in template_elements}
+    boxes = [e for e in template_elements if e.kind in ("box", "checkbox")]
     out = set()
+    results = []
     for r in match.elements:
+        results.append(r)
         e = by_id.get(r.id)
-        if e is None or not r.judged or e.kind not in ("box", "checkbox", "hline", "vline"):
+        if e is None or not r.judged or r.status == "ok" or e.kind not in ("box", "checkbox", "hline", "vline"):
             continue
-        if r.status == "resized" and e.kind in ("box", "checkbox"):
-            if min(e.size) / POINTS_PER_INCH * worst_dpi >= LEGIBLE_SIDE_PX:
+        if r.status == "resized":
+            if e.kind in ("box", "checkbox") and min(e.size) / POINTS_PER_INCH * worst_dpi >= LEGIBLE_SIDE_PX:
                 out.add(r.id)
-        elif r.status == "missing" and ink_probe(grey, dpi, e, match.pose) == "absent":
+            continue
+        seen = ink_probe(grey, dpi, e, match.pose)
+        if r.status == "moved":
+            if seen != "present":
+                out.add(r.id)
+            continue
+        if seen == "present":
+            continue
+        found = None
+        if e.kind in ("box", "checkbox") and min(e.size) / POINTS_PER_INCH * worst_dpi >= LEGIBLE_SIDE_PX:
+            others = [(o.center, o.size) for o in boxes if o.id != e.id]
+            found = seek_box(grey, dpi, e, match.pose, others, reach, tol)
+        if found is not None and found[0] == "resized":
+            results[-1] = replace(r, status="resized", size_ratio=float(found[1]))
             out.add(r.id)
-    return frozenset(out)
+        elif found is not None:
+            dx, dy = found[1]
+            results[-1] = replace(r, status="moved", offset_mm=(dx * MM_PER_POINT, dy * MM_PER_POINT))
+            out.add(r.id)
+        elif seen == "absent":
+            out.add(r.id)
+    return tuple(results), frozenset(out)

@@ -22,7 +22,7 @@ from .identify import IdentifySettings
 from .sources import (FAINT_CONTRAST, USUAL_DPI, PageError, RasterPage, ReadLimits, VectorPage, page_content_problem,
                       page_contrast, read_pages, render_pdf_page, square_pixels, where)
 from .template import LearnError, Template, TemplatePage, template_page, with_raster_sections
-from .verdict import SEVERITY, Finding, Tolerances, judge, offending, people_first, too_small
+from .verdict import SEVERITY, UNCLEAR_WHEN_SMALL, Finding, Tolerances, judge, offending, people_first, too_small
 
 #: Resolution at which a born-digital reference is rendered to learn how scans of it look
 #: (200 dpi: common practice for office scans; the raster extractor works in mm, so scans at
@@ -429,6 +429,8 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
                settings: CheckSettings, t0: float | None = None, page=None, capture=None) -> dict:
     """The record of one page from its found elements (``capture``: see :mod:`layoutcheck.capture`;
     the found elements are then those of the capture's page)."""
+    from dataclasses import replace
+
     t0 = time.perf_counter() if t0 is None else t0
     camera = capture is not None and capture.kind == "camera"
     solve_settings = camera_settings(settings, capture.sheet_px is not None) if camera else settings
@@ -446,8 +448,6 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         found, match = look_again(read, found, tp, match, solve_settings)
     on_read = match
     if capture is not None and match.pose is not None:
-        from dataclasses import replace
-
         # One pose from template to input: the match on the capture's page, then its place on the input.
         match = replace(match, pose=match.pose.compose(capture.to_input))
     input_size = (found.width, found.height) if capture is None else (page.width, page.height)
@@ -461,7 +461,10 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         readability = measure(match.pose, (tp.width, tp.height), page.dpi)
         if too_small(readability, settings.tolerances) and isinstance(read, RasterPage):
             # Too small to read as a whole, yet a box moved, gone or shrunk may still show plainly.
-            plain = legible(on_read, tp.elements_for(found.source), read.image, read.dpi, readability.worst_dpi)
+            tol = settings.tolerances.element_tolerance_mm / MM_PER_POINT
+            elements, plain = legible(on_read, tp.elements_for(found.source), read.image, read.dpi, readability.worst_dpi,
+                                      tol, solve_settings.solver.status_gate)
+            match = replace(match, elements=elements)
     verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size, zones=tp.zones,
                               camera=camera, readability=readability, legible=plain)
     recognised = verdict != "unrecognised"
@@ -480,7 +483,7 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         "support": round(match.support, 4),
         # Largest displacement of the smooth residual field (paper not flat), mm.
         "warp_mm": round(match.field.largest_mm, 2) if recognised and match.field is not None else None,
-        "offending": offending(match, ("missing", "resized") if camera and too_small(readability, settings.tolerances)
+        "offending": offending(match, UNCLEAR_WHEN_SMALL if camera and too_small(readability, settings.tolerances)
                                else (), plain) if recognised else [],
         "sections": [
             {"id": s.id, "name": s.name, "status": s.status, "offset_mm": [round(v, 2) for v in s.offset_mm],

@@ -419,7 +419,8 @@ SEEK_SCALES = (0.5, 0.55, 0.6, 0.65, 0.7, 0.75, 0.8, 0.85, 1.2, 1.3, 1.4, 1.5)
 def seek_box(grey: np.ndarray, dpi: float, element, pose: Pose, others, reach: float, tol: float):
     """Where a box the extractor did not find is printed, by its outline on the grey image.
 
-    First about its own centre at the sizes of :data:`SEEK_SCALES`; then, at its own size, anywhere
+    First about its own centre at the sizes of :data:`SEEK_SCALES` (the middle of those that fit);
+    then, at its own size, anywhere
     within ``reach`` points of its place (normalised cross-correlation of its outline with the
     ink, ``cv2.matchTemplate``). A place counts only when every side of the box shows ink there
     (:func:`ink_probe`), and a place farther than ``tol`` points only when no other template box
@@ -427,9 +428,12 @@ def seek_box(grey: np.ndarray, dpi: float, element, pose: Pose, others, reach: f
 
     Returns ``("resized", ratio)``, ``("moved", (dx, dy) template points)`` or None.
     """
-    for sc in SEEK_SCALES:
-        if ink_probe(grey, dpi, element, pose, scale=sc) == "present":
-            return "resized", sc
+    fits = [sc for sc in SEEK_SCALES if ink_probe(grey, dpi, element, pose, scale=sc) == "present"]
+    if fits:
+        # Sides are sought a little across themselves: neighbouring sizes fit too; the middle one
+        # of those tried on the same side of 1 is the box's.
+        side = [sc for sc in fits if (sc < 1.0) == (fits[0] < 1.0)]
+        return "resized", float(np.median(side))
     k = dpi / POINTS_PER_INCH
     from .elements import outline
 

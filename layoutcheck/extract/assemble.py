@@ -129,15 +129,15 @@ def _merged_row(pos, lo, hi, width, slope, idx):
     return (float(np.average(at_mid, weights=length)), a, b, float(width[idx].max()), s)
 
 
-def _crossing(hrow: np.ndarray, vrow: np.ndarray) -> tuple[float, float]:
-    """Where a horizontal and a vertical row (see :func:`_merge_axis`) cross, each taken as
-    the straight line through its middle with its slope."""
-    hy, hm, hs = hrow[0], (hrow[1] + hrow[2]) / 2, hrow[4]
-    vx, vm, vs = vrow[0], (vrow[1] + vrow[2]) / 2, vrow[4]
+def _crossing(hrow: np.ndarray, vrow: np.ndarray):
+    """Where horizontal and vertical rows (see :func:`_merge_axis`; arrays of rows broadcast
+    against each other) cross, each taken as the straight line through its middle with its
+    slope: ``(x, y)``."""
+    hy, hm, hs = hrow[..., 0], (hrow[..., 1] + hrow[..., 2]) / 2, hrow[..., 4]
+    vx, vm, vs = vrow[..., 0], (vrow[..., 1] + vrow[..., 2]) / 2, vrow[..., 4]
     # y = hy + hs (x - hm) and x = vx + vs (y - vm), solved together.
-    den = 1.0 - hs * vs
-    x = (vx + vs * (hy - hs * hm - vm)) / den
-    return float(x), float(hy + hs * (x - hm))
+    x = (vx + vs * (hy - hs * hm - vm)) / (1.0 - hs * vs)
+    return x, hy + hs * (x - hm)
 
 
 def _cells(h: np.ndarray, v: np.ndarray, st: AssemblySettings) -> list[tuple[int, int, int, int]]:
@@ -146,11 +146,13 @@ def _cells(h: np.ndarray, v: np.ndarray, st: AssemblySettings) -> list[tuple[int
         return []
     hy, hx0, hx1 = h[:, 0], h[:, 1], h[:, 2]
     vx, vy0, vy1 = v[:, 0], v[:, 1], v[:, 2]
+    # Where each pair crosses (each rule with its slope, see _crossing).
+    cx, cy = _crossing(h[:, None, :], v[None, :, :])
     meets = (
-        (vx[None, :] >= hx0[:, None] - st.meet)
-        & (vx[None, :] <= hx1[:, None] + st.meet)
-        & (hy[:, None] >= vy0[None, :] - st.meet)
-        & (hy[:, None] <= vy1[None, :] + st.meet)
+        (cx >= hx0[:, None] - st.meet)
+        & (cx <= hx1[:, None] + st.meet)
+        & (cy >= vy0[None, :] - st.meet)
+        & (cy <= vy1[None, :] + st.meet)
     )
     h_order = np.argsort(hy)
     v_order = np.argsort(vx)
@@ -276,7 +278,7 @@ def assemble(
         v_spans[j].append((top, bottom))
         v_spans[j2].append((top, bottom))
         # The cell's corners where its rules cross: its centre and mean sides.
-        tl, tr, br, bl = (np.array(_crossing(h[a], v[b])) for a, b in ((i, j), (i, j2), (i2, j2), (i2, j)))
+        tl, tr, br, bl = (np.array(_crossing(h[a], v[b]), float) for a, b in ((i, j), (i, j2), (i2, j2), (i2, j)))
         cx, cy = (tl + tr + br + bl) / 4
         w, hgt = ((tr[0] - tl[0]) + (br[0] - bl[0])) / 2, ((bl[1] - tl[1]) + (br[1] - tr[1])) / 2
         square = 0.75 <= w / hgt <= 1.33

@@ -43,7 +43,7 @@ SHEET_SEARCH_PX = 512
 #: desk is at most 60 % as bright (log -0.51), see :mod:`layoutcheck.simulate_camera`.
 PAPER_LOG_MARGIN = -0.25
 #: Finest resolution of a photo's first reading, dpi (see :func:`prepare`).
-FIRST_READING_DPI = 200.0
+FIRST_READING_DPI = 150.0
 #: White margin painted around the flattened sheet, mm: slivers of desk at the sheet's edge must
 #: not become elements, and a printed form keeps at least 5 mm clear (common practice).
 EDGE_MARGIN_MM = 2.0
@@ -90,17 +90,21 @@ def paper_mask(grey: np.ndarray) -> np.ndarray:
     lg = np.log1p(closed.astype(np.float32))
     t, _ = cv2.threshold(closed, 0, 255, cv2.THRESH_BINARY | cv2.THRESH_OTSU)
     mask = closed > t
-    yy, xx = np.mgrid[0:h, 0:w]
-    xn, yn = (xx.ravel() / w - 0.5), (yy.ravel() / h - 0.5)
-    terms = _poly_terms(xn, yn)
+    xs, ys = np.arange(w) / w - 0.5, np.arange(h) / h - 0.5
+    # The cubic over the whole grid, summed term by term from the columns' and rows' powers (the
+    # design matrix is built only for the pixels fitted).
+    powers = [(0, 0), (1, 0), (0, 1), (2, 0), (1, 1), (0, 2), (3, 0), (2, 1), (1, 2), (0, 3)]
     for _ in range(3):
         inner = cv2.erode(mask.view(np.uint8), np.ones((5, 5), np.uint8)).view(bool)
         sel = np.flatnonzero(inner.ravel())
         if len(sel) < 50:
             break
         sel = sel[:: max(1, len(sel) // 20000)]
-        coef, *_ = np.linalg.lstsq(terms[sel], lg.ravel()[sel], rcond=None)
-        surface = (terms @ coef).reshape(h, w)
+        a = _poly_terms(xs[sel % w], ys[sel // w])
+        # Normal equations: ten unknowns over coordinates within half a unit of 0 are well posed,
+        # and far quicker than a decomposition of the tall matrix.
+        coef = np.linalg.solve(a.T @ a, a.T @ lg.ravel()[sel].astype(float))
+        surface = sum(float(c) * np.outer(ys**b, xs**a) for c, (a, b) in zip(coef, powers))
         mask = lg > surface + PAPER_LOG_MARGIN
     return mask
 
@@ -255,7 +259,15 @@ def prepare(page: RasterPage, camera: bool) -> Capture:
     if not camera:
         return Capture("scan", page, Pose.identity())
     grey = np.ascontiguousarray(page.image, dtype=np.uint8)
-    sheet = find_sheet(grey)
+    h, w = grey.shape
+    # A large photo is halved once (a Gaussian pyramid step, cheaper than an area resize of the
+    # whole photo): the sheet is sought on the half, and the first reading often takes it as it is.
+    half = cv2.pyrDown(grey) if min(h, w) >= 4 * SHEET_SEARCH_PX else None
+    if half is None:
+        sheet = find_sheet(grey)
+    else:
+        sheet = find_sheet(half)
+        sheet = None if sheet is None else sheet * np.array([w / half.shape[1], h / half.shape[0]])
     dpi = float(page.dpi)
     if sheet is None:
         flat = flatten_light(grey, dpi)
@@ -266,8 +278,12 @@ def prepare(page: RasterPage, camera: bool) -> Capture:
     # The first reading only has to find the form and its pose (the second one, in the
     # template's frame, places it finely): a photo finer than FIRST_READING_DPI is reduced first.
     k = min(1.0, FIRST_READING_DPI / flat_dpi)
-    if k < 0.9:
-        h, w = grey.shape
+    if half is not None and 0.8 <= 2.0 * k <= 1.25:
+        grey = half
+        sx, sy = half.shape[1] / w, half.shape[0] / h
+        sheet = sheet * np.array([sx, sy])
+        flat_dpi *= (sx + sy) / 2.0
+    elif k < 0.9:
         rw, rh = max(16, int(round(w * k))), max(16, int(round(h * k)))
         grey = cv2.resize(grey, (rw, rh), interpolation=cv2.INTER_AREA)
         sx, sy = rw / w, rh / h

@@ -43,7 +43,7 @@ SHEET_SEARCH_PX = 512
 #: desk is at most 60 % as bright (log -0.51), see :mod:`layoutcheck.simulate_camera`.
 PAPER_LOG_MARGIN = -0.25
 #: Finest resolution of a photo's first reading, dpi (see :func:`prepare`).
-FIRST_READING_DPI = 150.0
+FIRST_READING_DPI = 200.0
 #: White margin painted around the flattened sheet, mm: slivers of desk at the sheet's edge must
 #: not become elements, and a printed form keeps at least 5 mm clear (common practice).
 EDGE_MARGIN_MM = 2.0
@@ -216,8 +216,8 @@ def flatten_light(grey: np.ndarray, dpi: float) -> np.ndarray:
     return np.clip(out, 0, 255).astype(np.uint8)
 
 
-def rectify(grey: np.ndarray, sheet_px: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The sheet mapped to an upright rectangle at about the photo's resolution.
+def rectify(grey: np.ndarray, sheet_px: np.ndarray, scale: float = 1.0) -> tuple[np.ndarray, np.ndarray]:
+    """The sheet mapped to an upright rectangle at about the photo's resolution (times ``scale``).
 
     The rectangle's sides are the means of the sheet's opposite sides: in perspective that
     ratio is off the sheet's own by a few percent, which the match takes as a scale along one
@@ -228,7 +228,7 @@ def rectify(grey: np.ndarray, sheet_px: np.ndarray) -> tuple[np.ndarray, np.ndar
     """
     q = np.asarray(sheet_px, float)
     top, right, bottom, left = (np.hypot(*(q[(i + 1) % 4] - q[i])) for i in range(4))
-    ow, oh = int(round((top + bottom) / 2)), int(round((left + right) / 2))
+    ow, oh = int(round(scale * (top + bottom) / 2)), int(round(scale * (left + right) / 2))
     dst = np.array([[0, 0], [ow, 0], [ow, oh], [0, oh]], dtype=np.float32)
     # Continuous pixel maps; OpenCV samples at integer pixel centres, hence the half pixels.
     m = cv2.getPerspectiveTransform(dst, q.astype(np.float32)).astype(float)
@@ -260,8 +260,8 @@ def prepare(page: RasterPage, camera: bool) -> Capture:
         return Capture("scan", page, Pose.identity())
     grey = np.ascontiguousarray(page.image, dtype=np.uint8)
     h, w = grey.shape
-    # A large photo is halved once (a Gaussian pyramid step, cheaper than an area resize of the
-    # whole photo): the sheet is sought on the half, and the first reading often takes it as it is.
+    # A large photo is halved once (a Gaussian pyramid step, far cheaper than an area resize of
+    # the whole photo): the sheet is sought on the half.
     half = cv2.pyrDown(grey) if min(h, w) >= 4 * SHEET_SEARCH_PX else None
     if half is None:
         sheet = find_sheet(grey)
@@ -276,22 +276,17 @@ def prepare(page: RasterPage, camera: bool) -> Capture:
     # The sheet's own size gives the working resolution (the image's may hold much desk).
     flat_dpi = dpi if page.dpi_stated else working_dpi(grey.shape, sheet)
     # The first reading only has to find the form and its pose (the second one, in the
-    # template's frame, places it finely): a photo finer than FIRST_READING_DPI is reduced first.
+    # template's frame, places it finely): a photo finer than FIRST_READING_DPI is read coarser.
+    # The sheet is sampled straight from the photo onto the coarser grid; only below half the
+    # photo's resolution is the photo halved first (a pyramid step), so no rule aliases away.
     k = min(1.0, FIRST_READING_DPI / flat_dpi)
-    if half is not None and 0.8 <= 2.0 * k <= 1.25:
-        grey = half
-        sx, sy = half.shape[1] / w, half.shape[0] / h
-        sheet = sheet * np.array([sx, sy])
-        flat_dpi *= (sx + sy) / 2.0
-    elif k < 0.9:
-        rw, rh = max(16, int(round(w * k))), max(16, int(round(h * k)))
-        grey = cv2.resize(grey, (rw, rh), interpolation=cv2.INTER_AREA)
-        sx, sy = rw / w, rh / h
-        sheet = sheet * np.array([sx, sy])
-        flat_dpi *= (sx + sy) / 2.0
-    else:
-        sx = sy = 1.0
-    image, out_to_in = rectify(grey, sheet)
+    src, sx, sy = grey, 1.0, 1.0
+    while k < 0.5 and min(src.shape) >= 64:
+        src = half if src is grey and half is not None else cv2.pyrDown(src)
+        sx, sy = src.shape[1] / w, src.shape[0] / h
+        k = min(1.0, FIRST_READING_DPI / (flat_dpi * (sx + sy) / 2.0))
+    image, out_to_in = rectify(src, sheet * np.array([sx, sy]), k)
+    flat_dpi *= (sx + sy) / 2.0 * k
     flat = flatten_light(image, flat_dpi)
     margin = max(1, int(round(EDGE_MARGIN_MM * flat_dpi / 25.4)))
     flat[:margin], flat[-margin:], flat[:, :margin], flat[:, -margin:] = 255, 255, 255, 255

@@ -608,20 +608,30 @@ def revision_differences(tp: TemplatePage, match: Match, other_tp: TemplatePage,
 
 
 #: Most resolution at which a photo is read a second time, in its template's frame (dpi).
-SECOND_READING_DPI = 250.0
+SECOND_READING_DPI = 200.0
 #: Scales considered in the second reading (see :func:`read_again`).
 SECOND_READING_SCALES = (0.6, 1.6)
+
+
+def clean(match: Match) -> bool:
+    """Whether every judged element of a match is in place."""
+    return match.pose is not None and all(e.status == "ok" for e in match.elements if e.judged)
 
 
 def second_reading(index, ident, page, capture, found, settings):
     """:func:`read_again` for the chosen template page. A page that agrees with none well enough
     (its first reading may have missed the rules that tell the forms apart) is read again for
     each of the three template pages tried that it agreed with best; the best agreeing is kept.
-    Returns ``(identification, capture, found, match)``, the identification's best being the
+    A page whose first reading finds every element in place under a perspective is not read
+    again. Returns ``(identification, capture, found, match)``, the identification's best being the
     template page kept, with the second reading's match."""
     from dataclasses import replace
 
     best = ident.best
+    if clean(best.match) and best.match.pose.is_projective:
+        # Every element in place under a perspective: the sheet's outline was good, and a second
+        # reading would find the same.
+        return ident, capture, found, best.match
     if best.match.support >= settings.tolerances.min_support:
         firsts = [best]
     else:
@@ -727,8 +737,11 @@ def handoff(rec: dict, page, found: PageElements, tp: TemplatePage, match: Match
             # centre (its file states none; a usual value is read back as written).
             eff = (rec.get("effective_dpi") or {}).get("centre")
             dpi = settings.normalise_dpi or (float(min(USUAL_DPI, key=lambda u: abs(u - eff))) if eff else None)
+            # A photo's sheet may bend: its bend is taken out too, so the page comes out flat.
+            bend = match.field if rec.get("capture") == "camera" else None
             rec["normalised"] = normalise_page(page, match.pose, (tp.width, tp.height), settings.normalise_dir,
-                                               dpi, settings.normalise_format, replace=settings.normalise_replace)
+                                               dpi, settings.normalise_format, replace=settings.normalise_replace,
+                                               field=bend)
     return rec
 
 

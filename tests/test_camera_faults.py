@@ -171,3 +171,23 @@ def test_bent_photo_of_a_dense_table_passes_with_its_corners_in_place(tmp_path):
     k = page.dpi / 72.0
     err = photo.corner_error_px(Pose(np.diag([k, k, 1.0]) @ np.array(rec["pose"]["projective"])))
     assert err.max() < 4.0, err
+
+
+def test_normalising_through_a_field_takes_the_bend_out():
+    from layoutcheck.field import fit_field
+    from layoutcheck.normalise import normalise_image
+
+    # A page at 100 dpi with a box; a residual field that is a plain shift of (3, -2) points
+    # over the page (fitted from samples of it), so the result must equal OpenCV's warpAffine of
+    # the page moved back by that shift (bicubic both).
+    img = _page_with_box(at=(60.0, 80.0))
+    grid = np.array([[x, y] for x in np.linspace(0, 595, 6) for y in np.linspace(0, 842, 6)])
+    field = fit_field(grid, np.tile([3.0, -2.0], (len(grid), 1)), np.ones((len(grid), 2), bool))
+    assert np.allclose(field.at(grid), [3.0, -2.0])
+    size_pt = (img.shape[1] * 72 / 100.0, img.shape[0] * 72 / 100.0)
+    out = normalise_image(img, 100.0, Pose.identity(), size_pt, 100.0, field=field).image
+    k = 100.0 / 72.0
+    want = cv2.warpAffine(img, np.float32([[1, 0, 3.0 * k], [0, 1, -2.0 * k]]), (img.shape[1], img.shape[0]),
+                          flags=cv2.INTER_CUBIC | cv2.WARP_INVERSE_MAP, borderMode=cv2.BORDER_CONSTANT, borderValue=255)
+    inner = (slice(20, -20), slice(20, -20))
+    assert np.abs(out[inner].astype(int) - want[inner].astype(int)).max() <= 2

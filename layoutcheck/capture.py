@@ -423,6 +423,11 @@ def ink_probe(grey: np.ndarray, dpi: float, element, pose: Pose, shift=(0.0, 0.0
     return "unclear"
 
 
+#: Least normalised cross-correlation of a box's outline with the ink for a place to be tried.
+SEEK_LEAST_SCORE = 0.2
+#: Best places tried, best correlated first: writing in a box moved with it lowers its
+#: correlation below that of larger boxes nearby.
+SEEK_PLACES = 10
 #: Scales tried for a box shrunk or grown about its centre (see :func:`seek_box`).
 SEEK_SCALES = (0.5, 0.55, 0.6, 0.65, 0.7, 0.75, 0.8, 0.85, 1.2, 1.3, 1.4, 1.5)
 
@@ -459,8 +464,9 @@ def seek_box(grey: np.ndarray, dpi: float, element, pose: Pose, others, reach: f
         return None
     ink = np.clip(240.0 - grey[y0:y1, x0:x1].astype(np.float32), 0.0, None)
     kernel = np.zeros((kh, kw), np.float32)
+    # Sides about as wide as a rule blurred by the lens (0.5 mm), so a side one pixel off still counts.
     cv2.polylines(kernel, [np.round(c - lo).astype(np.int32).reshape(-1, 1, 2)], True, 1.0,
-                  max(1, int(round(0.3 * dpi / 25.4))))
+                  max(2, int(round(0.5 * dpi / 25.4))))
     score = cv2.matchTemplate(ink, kernel, cv2.TM_CCOEFF_NORMED)
     # The box at its own place, in the window's coordinates; its own place is ruled out.
     own = np.array([lo[0] - x0, lo[1] - y0], float)
@@ -469,19 +475,18 @@ def seek_box(grey: np.ndarray, dpi: float, element, pose: Pose, others, reach: f
     inv = pose.inverse()
     centre = np.asarray(element.center, float)
     size = np.asarray(element.size, float)
-    for _ in range(3):
-        j = int(np.argmax(score))
-        py, px_ = divmod(j, score.shape[1])
-        if score[py, px_] <= 0.3:
-            return None
-        d_px = np.array([px_, py], float) - own
+    # Places where the correlation peaks within half the box's size each way: a larger box of
+    # the same height nearby is one ridge of high scores, and counts once.
+    peaks = (score >= cv2.dilate(score, np.ones((kh // 2 * 2 + 1, kw // 2 * 2 + 1), np.uint8))) & (score > SEEK_LEAST_SCORE)
+    py, px_ = np.nonzero(peaks)
+    for j in np.argsort(-score[py, px_])[:SEEK_PLACES]:
+        d_px = np.array([px_[j], py[j]], float) - own
         moved_to = inv.apply(pose.apply(centre[None]) + d_px / k)[0]
         shift = moved_to - centre
         taken = any(np.hypot(*(np.asarray(oc) - moved_to)) <= tol and np.all(np.abs(np.asarray(os_) / size - 1) <= 0.1)
                     for oc, os_ in others)
         if not taken and ink_probe(grey, dpi, element, pose, shift=shift) == "present":
             return "moved", (float(shift[0]), float(shift[1]))
-        score[max(0, py - 3):py + 4, max(0, px_ - 3):px_ + 4] = -1.0
     return None
 
 

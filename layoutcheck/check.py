@@ -409,18 +409,22 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
 #: that takes the sheet's long side as 11.35 in, so the form is at scale 1 within the spread of
 #: paper sizes (A5's 8.27 in to A3's 16.5 in long side: ISO 216; Letter 11 in: ANSI).
 SHEET_SCALE_RANGE = (0.7, 1.45)
+#: ... and only poses that put most of the form on the sheet (a turn by a quarter that would put
+#: a portrait form across a portrait sheet is not followed).
+SHEET_ON_PAGE = 0.8
 
 
 def camera_settings(settings: CheckSettings, sheet_found: bool = False) -> CheckSettings:
     """Settings for a camera capture: the perspective is freed whenever it is measurable, the
     agreeing set is grown region by region from the vote's cluster, and the vote takes x and y
     scales up to 15 % apart (the flattened sheet's sides are means of sides seen in perspective).
-    With the sheet found, only scales near 1 are considered (:data:`SHEET_SCALE_RANGE`): a
+    With the sheet found, only scales near 1 and poses that put the form on the sheet are
+    considered (:data:`SHEET_SCALE_RANGE`, :data:`SHEET_ON_PAGE`): a
     filled-in photo's handwriting must not pair the form's small labels with large scribbles;
     for the same reason printed text does not vote for the scale."""
     from dataclasses import replace
 
-    extra = {"scale_range": SHEET_SCALE_RANGE} if sheet_found else {}
+    extra = {"scale_range": SHEET_SCALE_RANGE, "min_on_page": SHEET_ON_PAGE} if sheet_found else {}
     return replace(settings, solver=replace(settings.solver, perspective_min=0.0, grow=True, max_anisotropy=0.15, spread=True,
                                             text_scale=False, **extra))
 

@@ -191,3 +191,29 @@ def test_normalising_through_a_field_takes_the_bend_out():
                           flags=cv2.INTER_CUBIC | cv2.WARP_INVERSE_MAP, borderMode=cv2.BORDER_CONSTANT, borderValue=255)
     inner = (slice(20, -20), slice(20, -20))
     assert np.abs(out[inner].astype(int) - want[inner].astype(int)).max() <= 2
+
+
+def test_share_on_page_and_quarter_turns_on_a_found_sheet():
+    from skimage.draw import polygon
+
+    from layoutcheck.consensus import SolverSettings, share_on_page, solve
+
+    # The share of a turned, shifted extent that lies on the page, against scikit-image's
+    # rasterised polygon of the same quadrilateral clipped to the page (1 pt pixels).
+    extent, page = (0.0, 0.0, 400.0, 600.0), (500.0, 500.0)
+    pose = Pose.from_params(rotation_deg=30.0, center=(200.0, 300.0), shift=(80.0, -40.0))
+    quad = pose.apply(np.array([[0, 0], [400, 0], [400, 600], [0, 600]], float))
+    rr, cc = polygon(quad[:, 1] + 1000, quad[:, 0] + 1000)  # kept off negative rows and columns
+    inside = ((rr >= 1000) & (rr < 1500) & (cc >= 1000) & (cc < 1500)).mean()
+    assert share_on_page(pose, extent, page, n=64) == pytest.approx(inside, abs=0.03)
+    # A portrait form seen turned a quarter on a landscape page: found as turned when any turn
+    # may be voted for; on a portrait sheet (the form must lie on it in its shape) it is not.
+    form = [_box((20.0 + 30 * (i % 5), 20.0 + 40 * (i // 5)), (12.0 + 3 * (i % 4), 8.0 + 2 * (i % 3)), f"box-{i:03d}")
+            for i in range(30)]
+    turned = Pose.from_params(rotation_deg=90.0, center=(297.6, 420.9), shift=(123.0, -123.0))
+    seen = [e.replace(frame=frame_from_center(*turned.apply(np.array([e.center]))[0], e.size[1], e.size[0]))
+            for e in form]
+    free = solve(form, seen, settings=SolverSettings(), page_size=(842.0, 595.0))
+    assert free.pose is not None and abs(abs(free.pose.rotation_deg) - 90.0) < 0.5 and free.support == 1.0
+    sheet = solve(form, seen, settings=SolverSettings(min_on_page=0.8), page_size=(595.0, 842.0))
+    assert sheet.pose is None or sheet.support < 0.5

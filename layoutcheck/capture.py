@@ -100,10 +100,10 @@ def paper_mask(grey: np.ndarray) -> np.ndarray:
         if len(sel) < 50:
             break
         sel = sel[:: max(1, len(sel) // 20000)]
-        a = _poly_terms(xs[sel % w], ys[sel // w])
+        design = _poly_terms(xs[sel % w], ys[sel // w])
         # Normal equations: ten unknowns over coordinates within half a unit of 0 are well posed,
         # and far quicker than a decomposition of the tall matrix.
-        coef = np.linalg.solve(a.T @ a, a.T @ lg.ravel()[sel].astype(float))
+        coef = np.linalg.solve(design.T @ design, design.T @ lg.ravel()[sel].astype(float))
         surface = sum(float(c) * np.outer(ys**b, xs**a) for c, (a, b) in zip(coef, powers))
         mask = lg > surface + PAPER_LOG_MARGIN
     return mask
@@ -477,7 +477,8 @@ def seek_box(grey: np.ndarray, dpi: float, element, pose: Pose, others, reach: f
     size = np.asarray(element.size, float)
     # Places where the correlation peaks within half the box's size each way: a larger box of
     # the same height nearby is one ridge of high scores, and counts once.
-    peaks = (score >= cv2.dilate(score, np.ones((kh // 2 * 2 + 1, kw // 2 * 2 + 1), np.uint8))) & (score > SEEK_LEAST_SCORE)
+    near = np.ones((kh // 2 * 2 + 1, kw // 2 * 2 + 1), np.uint8)
+    peaks = (score >= cv2.dilate(score, near)) & (score > SEEK_LEAST_SCORE)
     py, px_ = np.nonzero(peaks)
     for j in np.argsort(-score[py, px_])[:SEEK_PLACES]:
         d_px = np.array([px_[j], py[j]], float) - own

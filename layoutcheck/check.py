@@ -425,8 +425,8 @@ def camera_settings(settings: CheckSettings, sheet_found: bool = False) -> Check
     from dataclasses import replace
 
     extra = {"scale_range": SHEET_SCALE_RANGE, "min_on_page": SHEET_ON_PAGE} if sheet_found else {}
-    return replace(settings, solver=replace(settings.solver, perspective_min=0.0, grow=True, max_anisotropy=0.15, spread=True,
-                                            text_scale=False, **extra))
+    return replace(settings, solver=replace(settings.solver, perspective_min=0.0, grow=True, max_anisotropy=0.15,
+                                            spread=True, text_scale=False, **extra))
 
 
 def record_for(source: str, page_no: int, found: PageElements, templates: Sequence[Template],
@@ -466,8 +466,8 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         if too_small(readability, settings.tolerances) and isinstance(read, RasterPage):
             # Too small to read as a whole, yet a box moved, gone or shrunk may still show plainly.
             tol = settings.tolerances.element_tolerance_mm / MM_PER_POINT
-            elements, plain = legible(on_read, tp.elements_for(found.source), read.image, read.dpi, readability.worst_dpi,
-                                      tol, solve_settings.solver.status_gate)
+            elements, plain = legible(on_read, tp.elements_for(found.source), read.image, read.dpi,
+                                      readability.worst_dpi, tol, solve_settings.solver.status_gate)
             match = replace(match, elements=elements)
     verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size, zones=tp.zones,
                               camera=camera, readability=readability, legible=plain)
@@ -627,8 +627,8 @@ def second_reading(index, ident, page, capture, found, settings):
     (its first reading may have missed the rules that tell the forms apart) is read again for
     each of the three template pages tried that it agreed with best; the best agreeing is kept.
     A page whose first reading finds every element in place under a perspective is not read
-    again. Returns ``(identification, capture, found, match)``, the identification's best being the
-    template page kept, with the second reading's match."""
+    again. Returns ``(identification, capture, found, match)``, the identification's best being
+    the template page kept, with the second reading's match."""
     from dataclasses import replace
 
     best = ident.best

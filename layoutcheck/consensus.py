@@ -935,13 +935,13 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     allow = None
     if settings.min_on_page > 0 and page_size is not None:
         extent = _extent(tmpl_els)
-        w, h = extent[2] - extent[0], extent[3] - extent[1]
+        ew, eh = extent[2] - extent[0], extent[3] - extent[1]
 
         def allow(rot: float) -> bool:
             # The form turned by ``rot`` has about the page's shape (a portrait form turned a
             # quarter does not lie on a portrait sheet).
             a = math.radians(rot)
-            bw, bh = abs(w * math.cos(a)) + abs(h * math.sin(a)), abs(w * math.sin(a)) + abs(h * math.cos(a))
+            bw, bh = abs(ew * math.cos(a)) + abs(eh * math.sin(a)), abs(ew * math.sin(a)) + abs(eh * math.cos(a))
             r1, r2 = bw / max(bh, 1e-9), page_size[0] / max(page_size[1], 1e-9)
             return min(r1, r2) / max(r1, r2) >= settings.min_on_page
     hyps = vote_pose(tmpl, inp, ti, ii, settings, allow)

@@ -22,7 +22,8 @@ every intact photo that passes is normalised and the normalised page re-verified
 
 ``report`` shows beside its photo measures those of ``bench/results/camera_before_photos_*.json``
 when present: the ``photos`` part as run in another checkout (the main branch before a change),
-its ``camera_photos_*.json`` copied under that name.
+its ``camera_photos_*.json`` copied under that name; and photos held out from tuning,
+``camera_heldout_photos_*.json`` (with ``camera_before_heldout_photos_*.json``), the same way.
 
 ``speed``: a 12-megapixel photo checked end to end against one template in a fresh process
 (peak resident memory from ``resource``), beside the floor measured in the same process: JPEG
@@ -409,6 +410,20 @@ def report() -> str:
               "missing, resized or moved on them is judged only where the grey image shows it plainly (the box's "
               "place paper on every side, or the box found whole at another size or nearby); they count as "
               "intact-right when nothing is offending.", ""]
+    held = [r for f in sorted(RESULTS.glob("camera_heldout_photos_*.json")) for r in json.loads(f.read_text())]
+    if held:
+        held_was = [r for f in sorted(RESULTS.glob("camera_before_heldout_photos_*.json"))
+                    for r in json.loads(f.read_text())]
+        h_now, h_was = photo_measures(held), (photo_measures(held_was) if held_was else None)
+        lines += [f"Held out: {len(held)} more photos (numbers {min(r['k'] for r in held)} to {max(r['k'] for r in held)} "
+                  "of the same generator, other seeds), run once at the end and not looked at while the code was "
+                  "tuned on the photos above (`photos --start 110 --count 55`, its file renamed "
+                  "`camera_heldout_photos_110.json`; *before* likewise from the main branch).", "",
+                  ("| measure | before | now |" if h_was else "| measure | result |"),
+                  ("|---|---|---|" if h_was else "|---|---|")]
+        for key, name, _ in PHOTO_MEASURES:
+            lines.append(f"| {name} | " + (f"{h_was['text'][key]} | " if h_was else "") + f"{h_now['text'][key]} |")
+        lines.append("")
     misses = [r for r in intact if r not in right] + [r for r in tampered if r not in named_ok]
     if misses:
         lines += ["Cases that missed:", ""]

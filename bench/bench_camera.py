@@ -6,7 +6,7 @@ Run from the repository root, in parts (each a few minutes on one core)::
     python bench/bench_camera.py pairs                       # correspondences, ~1 minute
     python bench/bench_camera.py photos --start 0 --count 55 # photos 0-54
     python bench/bench_camera.py photos --start 55 --count 55
-    python bench/bench_camera.py speed                       # 12-megapixel photos, time and memory
+    python bench/bench_camera.py speed [--before DIR]        # 12-megapixel photos, time and memory
     python bench/bench_camera.py report                      # bench/results/camera.md
 
 ``pairs``: a synthetic form of 150 elements seen through a random homography (corners displaced
@@ -20,9 +20,15 @@ KBH-205, KBH-310 pages 1 and 2, KBH-412), 40 % intact and 60 % tampered (one box
 removed, or shrunk by 30 %), at 1600 x 1200 to 4000 x 3000, checked against all four templates;
 every intact photo that passes is normalised and the normalised page re-verified as a scan.
 
+``report`` shows beside its photo measures those of ``bench/results/camera_before_photos_*.json``
+when present: the ``photos`` part as run in another checkout (the main branch before a change),
+its ``camera_photos_*.json`` copied under that name; and photos held out from tuning,
+``camera_heldout_photos_*.json`` (with ``camera_before_heldout_photos_*.json``), the same way.
+
 ``speed``: a 12-megapixel photo checked end to end against one template in a fresh process
 (peak resident memory from ``resource``), beside the floor measured in the same process: JPEG
-decode, greyscale, Otsu threshold and connected components.
+decode, greyscale, Otsu threshold and connected components. With ``--before DIR`` each photo is
+also checked by the checkout at ``DIR``, in a fresh process right after, with its own floor.
 """
 
 from __future__ import annotations
@@ -248,29 +254,103 @@ print(json.dumps({"verdict": rec["verdict"], "full": min(full), "floor": min(flo
 """
 
 
-def part_speed(n: int = 3, reps: int = 3) -> list[dict]:
+def part_speed(n: int = 4, reps: int = 3, before: str | None = None) -> list[dict]:
+    """Each photo checked in a fresh process of this tree and, with ``before`` (the root of
+    another checkout, e.g. the main branch), of that one right after it, side by side. The
+    first three photos are of intact forms, the fourth of one with a box moved (a page with a
+    fault takes the longer way: it is read a second time)."""
     from layoutcheck.simulate_camera import CameraSettings, simulate_photo
 
     templates()
     out = []
     for k in range(n):
         stem, page_no = (FORMS[0], FORMS[1], FORMS[4])[k % 3]
-        st = CameraSettings(page=page_no, size=(4000, 3000), seed=900 + k, bend_mm=0.3)
+        st = CameraSettings(page=page_no, size=(4000, 3000), seed=900 + k, bend_mm=0.3, tamper="moved" if k >= 3 else None)
         photo = simulate_photo(ROOT / "sample_forms" / "references" / f"{stem}.pdf", st)
         path = WORK / f"speed_{k}.jpg"
         photo.save(path)
         tpath = WORK / f"{stem}.json"
-        env = dict(os.environ, PYTHONPATH=str(ROOT), OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1")
-        res = subprocess.run([sys.executable, "-c", SPEED_CHILD, str(path), str(tpath), str(reps)], env=env,
-                             capture_output=True, text=True, check=True)
-        row = json.loads(res.stdout.strip().splitlines()[-1])
-        row.update(form=stem.split("_")[0], size="4000x3000")
+
+        def child(root):
+            env = dict(os.environ, PYTHONPATH=str(root), OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1")
+            res = subprocess.run([sys.executable, "-c", SPEED_CHILD, str(path), str(tpath), str(reps)], env=env,
+                                 capture_output=True, text=True, check=True, cwd=str(root))
+            return json.loads(res.stdout.strip().splitlines()[-1])
+
+        row = child(ROOT)
+        row.update(form=stem.split("_")[0], size="4000x3000", tamper=st.tamper)
+        if before:
+            row["before"] = child(before)
         out.append(row)
         print(row, flush=True)
     return out
 
 
 # -- report ---------------------------------------------------------------------------------------
+#: The photo measures of the report: key, name, target.
+PHOTO_MEASURES = (
+    ("intact", "intact: right template page and nothing offending", ">= 98 %"),
+    ("tampered", "tampered: the box named with its status", ">= 98 %"),
+    ("readable", "same, photos showing the whole form at >= 150 dpi", ""),
+    ("small", "same, photos showing part of the form under 150 dpi", ""),
+    ("corners", "homography corner error, photo px (all photos recognised)", "median <= 1, max <= 4"),
+    ("flat", "same, photos bent under 0.3 mm", ""),
+    ("reverify", "normalised photo re-verified as a scan", "<= 0.05 deg, <= 0.1 %, <= 0.5 mm"),
+)
+
+
+def _named(r) -> bool:
+    """Whether a tampered photo's record names the planted box with its status."""
+    pl = r["planted"]
+    if r["template"] != r["form"]:
+        return False
+    return any(o["status"] == pl["status"] and np.abs(np.array(o["frame"]) - np.array(pl["frame"])).max() < 6.0
+               for o in r["offending"])
+
+
+def photo_measures(rows: list[dict]) -> dict:
+    """The report's photo measures of one run's rows: texts per :data:`PHOTO_MEASURES` key, and
+    the rows behind them."""
+    intact = [r for r in rows if r["tamper"] is None]
+    tampered = [r for r in rows if r["tamper"] is not None and r["planted"] is not None]
+    right = [r for r in intact if r["template"] == r["form"] and r["template_page"] == r["page"] and not r["offending"]]
+    named = [r for r in tampered if _named(r)]
+    only = [r for r in named if len(r["offending"]) == 1]
+    readable = [r for r in tampered if (r.get("effective_dpi") or {}).get("worst", 0) >= 150]
+    small = [r for r in tampered if r not in readable]
+
+    def share(part, whole):
+        return f"{len(part)} of {len(whole)} ({len(part) / max(len(whole), 1):.1%})"
+
+    def corner_text(sel):
+        c = np.concatenate([r["corner_px"] for r in sel] or [np.zeros(0)])
+        if not len(c):
+            return "none"
+        return (f"{len(c) // 4} photos: median {np.median(c):.2f}, 95th pct {np.percentile(c, 95):.2f}, "
+                f"max {c.max():.2f}")
+
+    recognised = [r for r in rows if r.get("corner_px") and r["template"] == r["form"]]
+    rev = [r["reverify"] for r in rows if r.get("reverify") and r["reverify"].get("ok")]
+    offs = [v["max_offset_mm"] or 0 for v in rev]
+    verdicts: dict = {}
+    for r in rows:
+        verdicts[r["verdict"]] = verdicts.get(r["verdict"], 0) + 1
+    text = {
+        "intact": share(right, intact),
+        "tampered": f"{share(named, tampered)}; named alone {len(only)}",
+        "readable": share([r for r in readable if r in named], readable),
+        "small": share([r for r in small if r in named], small),
+        "corners": corner_text(recognised),
+        "flat": corner_text([r for r in recognised if r["bend_mm"] < 0.3]),
+        "reverify": (f"{len(rev)} pages: turn max {max((v['turn'] for v in rev), default=float('nan')):.3f} deg, "
+                     f"scale error max {max((v['scale_err'] for v in rev), default=float('nan')):.3f} %, element "
+                     f"offset max {max(offs, default=float('nan')):.2f} mm (median of per-page max "
+                     f"{np.median(offs) if offs else float('nan'):.2f})"),
+    }
+    return {"text": text, "intact": intact, "tampered": tampered, "right": right, "named": named,
+            "verdicts": verdicts}
+
+
 def report() -> str:
     import scipy
     import skimage
@@ -305,51 +385,45 @@ def report() -> str:
         lines.append(f"| {r} % | " + " | ".join(cells) + " |")
     lines += ["", "Median time per estimate: " + ", ".join(f"{m} {v * 1000:.1f} ms" for m, v in pairs["times"].items()) + ".", ""]
     # photos
-    n = len(rows)
-    intact = [r for r in rows if r["tamper"] is None]
-    tampered = [r for r in rows if r["tamper"] is not None and r["planted"] is not None]
-    right = [r for r in intact if r["template"] == r["form"] and r["template_page"] == r["page"] and not r["offending"]]
-
-    def named(r):
-        pl = r["planted"]
-        if r["template"] != r["form"]:
-            return False
-        for o in r["offending"]:
-            if o["status"] == pl["status"] and np.abs(np.array(o["frame"]) - np.array(pl["frame"])).max() < 6.0:
-                return True
-        return False
-
-    named_ok = [r for r in tampered if named(r)]
-    only = [r for r in named_ok if len(r["offending"]) == 1]
-    readable = [r for r in tampered if (r.get("effective_dpi") or {}).get("worst", 0) >= 150]
-    readable_ok = [r for r in readable if named(r)]
-    corners = np.concatenate([r["corner_px"] for r in rows if r.get("corner_px") and r["template"] == r["form"]])
-    flat_c = np.concatenate([r["corner_px"] for r in rows if r.get("corner_px") and r["template"] == r["form"] and r["bend_mm"] < 0.3] or [np.zeros(0)])
-    rev = [r["reverify"] for r in rows if r.get("reverify") and r["reverify"].get("ok")]
-    verdicts = {}
-    for r in rows:
-        verdicts[r["verdict"]] = verdicts.get(r["verdict"], 0) + 1
+    before_rows = []
+    for f in sorted(RESULTS.glob("camera_before_photos_*.json")):
+        before_rows += json.loads(f.read_text())
+    now = photo_measures(rows)
+    was = photo_measures(before_rows) if before_rows else None
+    intact, tampered, right, named_ok = now["intact"], now["tampered"], now["right"], now["named"]
     lines += ["## Simulated photos end to end", "",
-              f"{n} photos by `layoutcheck.simulate_camera` of the five sample form pages (KBH-101, KBH-205, KBH-310 "
+              f"{len(rows)} photos by `layoutcheck.simulate_camera` of the five sample form pages (KBH-101, KBH-205, KBH-310 "
               "pages 1 and 2, KBH-412; KBH-310's two pages count as two forms), 1600 x 1200 to 4000 x 3000, corners "
               "displaced 2-5 % of the page width, the phone turned up to 6 deg, textured desk of random colour, light "
               "falling off 35 % towards the corners, a soft shadow, paper bend 0-1 mm, lens blur 0.5-1.3 px, noise "
               "2-6 grey levels, colour JPEG at quality 70-95 with no dpi or 72, a quarter stored turned with an EXIF "
               "orientation, 70 % filled in. 40 % intact, 60 % with one isolated box moved 8-15 mm, removed or shrunk "
-              "by 30 %. Each checked against all four templates with the default tolerances (`--min-dpi 150`).", "",
-              "| measure | result | target |", "|---|---|---|",
-              f"| intact: right template page and nothing offending | {len(right)} of {len(intact)} ({len(right) / max(len(intact), 1):.1%}) | >= 98 % |",
-              f"| tampered: the box named with its status | {len(named_ok)} of {len(tampered)} ({len(named_ok) / max(len(tampered), 1):.1%}); named alone {len(only)} | >= 98 % |",
-              f"| same, photos showing the whole form at >= 150 dpi | {len(readable_ok)} of {len(readable)} ({len(readable_ok) / max(len(readable), 1):.1%}) | |",
-              f"| homography corner error, photo px (all photos recognised, {len(corners) // 4}) | median {np.median(corners):.2f}, 95th pct {np.percentile(corners, 95):.2f}, max {corners.max():.2f} | median <= 1, max <= 4 |",
-              (f"| same, photos bent under 0.3 mm ({len(flat_c) // 4}) | median {np.median(flat_c):.2f}, max {flat_c.max():.2f} | |" if len(flat_c) else "| same, bent under 0.3 mm | none | |"),
-              f"| normalised photo re-verified as a scan ({len(rev)}) | turn max {max((v['turn'] for v in rev), default=float('nan')):.3f} deg, "
-              f"scale error max {max((v['scale_err'] for v in rev), default=float('nan')):.3f} %, element offset max "
-              f"{max((v['max_offset_mm'] or 0 for v in rev), default=float('nan')):.2f} mm (median of per-page max "
-              f"{np.median([v['max_offset_mm'] or 0 for v in rev]) if rev else float('nan'):.2f}) | <= 0.05 deg, <= 0.1 %, <= 0.5 mm |",
-              "", "Verdicts: " + ", ".join(f"{v} {c}" for v, c in sorted(verdicts.items())) + ". "
-              "Photos whose form is shown below 150 dpi somewhere are `retake` (their missing or resized elements not judged); "
-              "they count as intact-right when nothing is offending.", ""]
+              "by 30 %. Each checked against all four templates with the default tolerances (`--min-dpi 150`)."
+              + (" The column *before* is the same photos checked by the main branch as it was before this work "
+                 "(`camera_before_photos_*.json`, the `photos` part run in that checkout)." if was else ""), "",
+              ("| measure | before | now | target |" if was else "| measure | result | target |"),
+              ("|---|---|---|---|" if was else "|---|---|---|")]
+    for key, name, target in PHOTO_MEASURES:
+        lines.append(f"| {name} | " + (f"{was['text'][key]} | " if was else "") + f"{now['text'][key]} | {target} |")
+    lines += ["", "Verdicts: " + ", ".join(f"{v} {c}" for v, c in sorted(now["verdicts"].items())) + ". "
+              "Photos whose form is shown below 150 dpi somewhere get a `retake` finding; what the extractor reports "
+              "missing, resized or moved on them is judged only where the grey image shows it plainly (the box's "
+              "place paper on every side, or the box found whole at another size or nearby); they count as "
+              "intact-right when nothing is offending.", ""]
+    held = [r for f in sorted(RESULTS.glob("camera_heldout_photos_*.json")) for r in json.loads(f.read_text())]
+    if held:
+        held_was = [r for f in sorted(RESULTS.glob("camera_before_heldout_photos_*.json"))
+                    for r in json.loads(f.read_text())]
+        h_now, h_was = photo_measures(held), (photo_measures(held_was) if held_was else None)
+        lines += [f"Held out: {len(held)} more photos (numbers {min(r['k'] for r in held)} to {max(r['k'] for r in held)} "
+                  "of the same generator, other seeds), run once at the end and not looked at while the code was "
+                  "tuned on the photos above (`photos --start 110 --count 55`, its file renamed "
+                  "`camera_heldout_photos_110.json`; *before* likewise from the main branch).", "",
+                  ("| measure | before | now |" if h_was else "| measure | result |"),
+                  ("|---|---|---|" if h_was else "|---|---|")]
+        for key, name, _ in PHOTO_MEASURES:
+            lines.append(f"| {name} | " + (f"{h_was['text'][key]} | " if h_was else "") + f"{h_now['text'][key]} |")
+        lines.append("")
     misses = [r for r in intact if r not in right] + [r for r in tampered if r not in named_ok]
     if misses:
         lines += ["Cases that missed:", ""]
@@ -365,10 +439,18 @@ def report() -> str:
               "of 3 after a warm-up; the floor in the same process is JPEG decode + greyscale + Otsu threshold + "
               "connected components. Peak memory is the process's peak resident size (VmHWM) while checking (imports "
               "included; measured before the floor runs, whose connected components of the whole noisy photo are "
-              "larger than the check itself). The photos: bend 0.3 mm, the other settings at their defaults.", "",
+              "larger than the check itself). The photos: bend 0.3 mm, the other settings at their defaults; the "
+              "last one of a form with a box moved.", "",
               "| form | verdict | end to end (s) | floor (s) | ratio | peak memory (MB) |", "|---|---|---|---|---|---|"]
     for s in speed:
-        lines.append(f"| {s['form']} | {s['verdict']} | {s['full']:.2f} | {s['floor']:.3f} | {s['full'] / s['floor']:.1f} | {s['peak_mb']:.0f} |")
+        form = s["form"] + (f" ({s['tamper']})" if s.get("tamper") else "")
+        lines.append(f"| {form} | {s['verdict']} | {s['full']:.2f} | {s['floor']:.3f} | {s['full'] / s['floor']:.1f} | {s['peak_mb']:.0f} |")
+        b = s.get("before")
+        if b:
+            lines.append(f"| {form}, before | {b['verdict']} | {b['full']:.2f} | {b['floor']:.3f} | {b['full'] / b['floor']:.1f} | {b['peak_mb']:.0f} |")
+    if any(s.get("before") for s in speed):
+        lines += ["", "Rows *before*: the same photo checked by the main branch as it was before this work, in a fresh "
+                  "process right after this tree's (`speed --before DIR`), its floor measured in that process."]
     lines += ["", "Targets: <= 1.5 s on one core, <= 3x the floor, <= 600 MB."]
     return "\n".join(lines) + "\n"
 
@@ -380,6 +462,7 @@ def main() -> None:
     ap.add_argument("--start", type=int, default=0)
     ap.add_argument("--count", type=int, default=110)
     ap.add_argument("--trials", type=int, default=20)
+    ap.add_argument("--before", default=None, help="speed: root of another checkout measured beside this one")
     a = ap.parse_args()
     RESULTS.mkdir(parents=True, exist_ok=True)
     WORK.mkdir(parents=True, exist_ok=True)
@@ -389,7 +472,7 @@ def main() -> None:
         rows = part_photos(a.start, a.count)
         (RESULTS / f"camera_photos_{a.start:03d}.json").write_text(json.dumps(rows, indent=0), encoding="utf-8")
     elif a.part == "speed":
-        (RESULTS / "camera_speed.json").write_text(json.dumps(part_speed()), encoding="utf-8")
+        (RESULTS / "camera_speed.json").write_text(json.dumps(part_speed(before=a.before)), encoding="utf-8")
     else:
         text = report()
         (RESULTS / "camera.md").write_text(text, encoding="utf-8")

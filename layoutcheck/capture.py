@@ -90,17 +90,21 @@ def paper_mask(grey: np.ndarray) -> np.ndarray:
     lg = np.log1p(closed.astype(np.float32))
     t, _ = cv2.threshold(closed, 0, 255, cv2.THRESH_BINARY | cv2.THRESH_OTSU)
     mask = closed > t
-    yy, xx = np.mgrid[0:h, 0:w]
-    xn, yn = (xx.ravel() / w - 0.5), (yy.ravel() / h - 0.5)
-    terms = _poly_terms(xn, yn)
+    xs, ys = np.arange(w) / w - 0.5, np.arange(h) / h - 0.5
+    # The cubic over the whole grid, summed term by term from the columns' and rows' powers (the
+    # design matrix is built only for the pixels fitted).
+    powers = [(0, 0), (1, 0), (0, 1), (2, 0), (1, 1), (0, 2), (3, 0), (2, 1), (1, 2), (0, 3)]
     for _ in range(3):
         inner = cv2.erode(mask.view(np.uint8), np.ones((5, 5), np.uint8)).view(bool)
         sel = np.flatnonzero(inner.ravel())
         if len(sel) < 50:
             break
         sel = sel[:: max(1, len(sel) // 20000)]
-        coef, *_ = np.linalg.lstsq(terms[sel], lg.ravel()[sel], rcond=None)
-        surface = (terms @ coef).reshape(h, w)
+        design = _poly_terms(xs[sel % w], ys[sel // w])
+        # Normal equations: ten unknowns over coordinates within half a unit of 0 are well posed,
+        # and far quicker than a decomposition of the tall matrix.
+        coef = np.linalg.solve(design.T @ design, design.T @ lg.ravel()[sel].astype(float))
+        surface = sum(float(c) * np.outer(ys**b, xs**a) for c, (a, b) in zip(coef, powers))
         mask = lg > surface + PAPER_LOG_MARGIN
     return mask
 
@@ -212,8 +216,8 @@ def flatten_light(grey: np.ndarray, dpi: float) -> np.ndarray:
     return np.clip(out, 0, 255).astype(np.uint8)
 
 
-def rectify(grey: np.ndarray, sheet_px: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The sheet mapped to an upright rectangle at about the photo's resolution.
+def rectify(grey: np.ndarray, sheet_px: np.ndarray, scale: float = 1.0) -> tuple[np.ndarray, np.ndarray]:
+    """The sheet mapped to an upright rectangle at about the photo's resolution (times ``scale``).
 
     The rectangle's sides are the means of the sheet's opposite sides: in perspective that
     ratio is off the sheet's own by a few percent, which the match takes as a scale along one
@@ -224,7 +228,7 @@ def rectify(grey: np.ndarray, sheet_px: np.ndarray) -> tuple[np.ndarray, np.ndar
     """
     q = np.asarray(sheet_px, float)
     top, right, bottom, left = (np.hypot(*(q[(i + 1) % 4] - q[i])) for i in range(4))
-    ow, oh = int(round((top + bottom) / 2)), int(round((left + right) / 2))
+    ow, oh = int(round(scale * (top + bottom) / 2)), int(round(scale * (left + right) / 2))
     dst = np.array([[0, 0], [ow, 0], [ow, oh], [0, oh]], dtype=np.float32)
     # Continuous pixel maps; OpenCV samples at integer pixel centres, hence the half pixels.
     m = cv2.getPerspectiveTransform(dst, q.astype(np.float32)).astype(float)
@@ -255,7 +259,15 @@ def prepare(page: RasterPage, camera: bool) -> Capture:
     if not camera:
         return Capture("scan", page, Pose.identity())
     grey = np.ascontiguousarray(page.image, dtype=np.uint8)
-    sheet = find_sheet(grey)
+    h, w = grey.shape
+    # A large photo is halved once (a Gaussian pyramid step, far cheaper than an area resize of
+    # the whole photo): the sheet is sought on the half.
+    half = cv2.pyrDown(grey) if min(h, w) >= 4 * SHEET_SEARCH_PX else None
+    if half is None:
+        sheet = find_sheet(grey)
+    else:
+        sheet = find_sheet(half)
+        sheet = None if sheet is None else sheet * np.array([w / half.shape[1], h / half.shape[0]])
     dpi = float(page.dpi)
     if sheet is None:
         flat = flatten_light(grey, dpi)
@@ -264,18 +276,17 @@ def prepare(page: RasterPage, camera: bool) -> Capture:
     # The sheet's own size gives the working resolution (the image's may hold much desk).
     flat_dpi = dpi if page.dpi_stated else working_dpi(grey.shape, sheet)
     # The first reading only has to find the form and its pose (the second one, in the
-    # template's frame, places it finely): a photo finer than FIRST_READING_DPI is reduced first.
+    # template's frame, places it finely): a photo finer than FIRST_READING_DPI is read coarser.
+    # The sheet is sampled straight from the photo onto the coarser grid; only below half the
+    # photo's resolution is the photo halved first (a pyramid step), so no rule aliases away.
     k = min(1.0, FIRST_READING_DPI / flat_dpi)
-    if k < 0.9:
-        h, w = grey.shape
-        rw, rh = max(16, int(round(w * k))), max(16, int(round(h * k)))
-        grey = cv2.resize(grey, (rw, rh), interpolation=cv2.INTER_AREA)
-        sx, sy = rw / w, rh / h
-        sheet = sheet * np.array([sx, sy])
-        flat_dpi *= (sx + sy) / 2.0
-    else:
-        sx = sy = 1.0
-    image, out_to_in = rectify(grey, sheet)
+    src, sx, sy = grey, 1.0, 1.0
+    while k < 0.5 and min(src.shape) >= 64:
+        src = half if src is grey and half is not None else cv2.pyrDown(src)
+        sx, sy = src.shape[1] / w, src.shape[0] / h
+        k = min(1.0, FIRST_READING_DPI / (flat_dpi * (sx + sy) / 2.0))
+    image, out_to_in = rectify(src, sheet * np.array([sx, sy]), k)
+    flat_dpi *= (sx + sy) / 2.0 * k
     flat = flatten_light(image, flat_dpi)
     margin = max(1, int(round(EDGE_MARGIN_MM * flat_dpi / 25.4)))
     flat[:margin], flat[-margin:], flat[:, :margin], flat[:, -margin:] = 255, 255, 255, 255
@@ -350,3 +361,188 @@ def in_template_frame(page: RasterPage, pose: Pose, size_pt: tuple[float, float]
     margin = max(1, int(round(EDGE_MARGIN_MM * dpi / 25.4)))
     flat[:margin], flat[-margin:], flat[:, :margin], flat[:, -margin:] = 255, 255, 255, 255
     return Capture("camera", RasterPage(page.source, page.page, flat, dpi, False), pose, None)
+
+
+#: A side of a box, or a rule, shows ink where the darkest pixel across it (within
+#: :data:`PROBE_REACH_MM`) is this many grey levels under the paper of the flattened page (240).
+PROBE_INK = 40.0
+#: How far across a side the probe looks, mm: the pose and the bend are good to about 1 mm.
+PROBE_REACH_MM = 1.5
+#: Share of a side's middle (its ends left out: corners, ticks) that must show ink for the side
+#: to be there, and that may show ink for it to be absent.
+PROBE_PRESENT = 0.6
+PROBE_ABSENT = 0.25
+#: Fewest pixels a box's shorter side must span at the photo's worst resolution for its size to
+#: be judged there (a third off a side of 20 pixels is 7 pixels; finer it blurs into noise).
+LEGIBLE_SIDE_PX = 20.0
+
+
+def side_ink(grey: np.ndarray, dpi: float, p: np.ndarray, q: np.ndarray, samples: int = 24) -> float:
+    """Share of the middle of segment ``p``-``q`` (points on ``grey``, flattened light, paper
+    240) that holds ink within :data:`PROBE_REACH_MM` across it (``cv2.remap``, bilinear)."""
+    k = dpi / POINTS_PER_INCH
+    p, q = np.asarray(p, float) * k, np.asarray(q, float) * k
+    length = float(np.hypot(*(q - p)))
+    if length < 1.0:
+        return 0.0
+    u = (q - p) / length
+    n = np.array([-u[1], u[0]])
+    reach = PROBE_REACH_MM * dpi / 25.4
+    t = np.linspace(0.15, 0.85, samples)
+    s = np.linspace(-reach, reach, max(3, int(2 * reach) + 1))
+    pts = p[None, None, :] + (t[:, None, None] * length) * u + s[None, :, None] * n  # (samples, across, 2)
+    # Continuous coordinates -> OpenCV's pixel-centre ones.
+    mx = (pts[..., 0] - 0.5).astype(np.float32)
+    my = (pts[..., 1] - 0.5).astype(np.float32)
+    strip = cv2.remap(grey, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=255)
+    return float((strip.min(axis=1) < 240.0 - PROBE_INK).mean())
+
+
+def ink_probe(grey: np.ndarray, dpi: float, element, pose: Pose, shift=(0.0, 0.0), scale: float = 1.0) -> str:
+    """Whether a box or rule is printed where ``pose`` puts it (moved by ``shift`` and scaled by
+    ``scale`` about its centre first, template points).
+
+    Returns ``"absent"`` when no side of it shows ink (each side's middle is paper on at least
+    three quarters of its length), ``"present"`` when every side shows ink along most of it, and
+    ``"unclear"`` otherwise (handwriting across it, print too faint for the resolution).
+    """
+    from .elements import outline
+
+    c0 = np.asarray(element.center, float)
+    c = pose.apply((outline(element) - c0) * scale + c0 + np.asarray(shift, float))
+    if element.kind in ("box", "checkbox"):
+        sides = [side_ink(grey, dpi, c[i], c[(i + 1) % 4]) for i in range(4)]
+    else:
+        long_first = np.hypot(*(c[1] - c[0])) >= np.hypot(*(c[3] - c[0]))
+        a, b = ((c[0] + c[3]) / 2, (c[1] + c[2]) / 2) if long_first else ((c[0] + c[1]) / 2, (c[3] + c[2]) / 2)
+        sides = [side_ink(grey, dpi, a, b)]
+    if all(v <= PROBE_ABSENT for v in sides):
+        return "absent"
+    if all(v >= PROBE_PRESENT for v in sides):
+        return "present"
+    return "unclear"
+
+
+#: Least normalised cross-correlation of a box's outline with the ink for a place to be tried.
+SEEK_LEAST_SCORE = 0.2
+#: Best places tried, best correlated first: writing in a box moved with it lowers its
+#: correlation below that of larger boxes nearby.
+SEEK_PLACES = 10
+#: Scales tried for a box shrunk or grown about its centre (see :func:`seek_box`).
+SEEK_SCALES = (0.5, 0.55, 0.6, 0.65, 0.7, 0.75, 0.8, 0.85, 1.2, 1.3, 1.4, 1.5)
+
+
+def seek_box(grey: np.ndarray, dpi: float, element, pose: Pose, others, reach: float, tol: float):
+    """Where a box the extractor did not find is printed, by its outline on the grey image.
+
+    First about its own centre at the sizes of :data:`SEEK_SCALES` (the middle of those that fit);
+    then, at its own size, anywhere
+    within ``reach`` points of its place (normalised cross-correlation of its outline with the
+    ink, ``cv2.matchTemplate``). A place counts only when every side of the box shows ink there
+    (:func:`ink_probe`), and a place farther than ``tol`` points only when no other template box
+    of about its size (``others``: their centres and sizes, template points) is expected there.
+
+    Returns ``("resized", ratio)``, ``("moved", (dx, dy) template points)`` or None.
+    """
+    fits = [sc for sc in SEEK_SCALES if ink_probe(grey, dpi, element, pose, scale=sc) == "present"]
+    if fits:
+        # Sides are sought a little across themselves: neighbouring sizes fit too; the middle one
+        # of those tried on the same side of 1 is the box's.
+        side = [sc for sc in fits if (sc < 1.0) == (fits[0] < 1.0)]
+        return "resized", float(np.median(side))
+    k = dpi / POINTS_PER_INCH
+    from .elements import outline
+
+    c = pose.apply(outline(element)) * k
+    r = int(np.ceil(reach * k))
+    lo = np.floor(c.min(0)).astype(int) - 2
+    hi = np.ceil(c.max(0)).astype(int) + 2
+    x0, y0 = max(0, lo[0] - r), max(0, lo[1] - r)
+    x1, y1 = min(grey.shape[1], hi[0] + r), min(grey.shape[0], hi[1] + r)
+    kw, kh = hi[0] - lo[0], hi[1] - lo[1]
+    if x1 - x0 <= kw or y1 - y0 <= kh or kw < 4 or kh < 4:
+        return None
+    ink = np.clip(240.0 - grey[y0:y1, x0:x1].astype(np.float32), 0.0, None)
+    kernel = np.zeros((kh, kw), np.float32)
+    # Sides about as wide as a rule blurred by the lens (0.5 mm), so a side one pixel off still counts.
+    cv2.polylines(kernel, [np.round(c - lo).astype(np.int32).reshape(-1, 1, 2)], True, 1.0,
+                  max(2, int(round(0.5 * dpi / 25.4))))
+    score = cv2.matchTemplate(ink, kernel, cv2.TM_CCOEFF_NORMED)
+    # The box at its own place, in the window's coordinates; its own place is ruled out.
+    own = np.array([lo[0] - x0, lo[1] - y0], float)
+    yy, xx = np.mgrid[0:score.shape[0], 0:score.shape[1]]
+    score[np.hypot(xx - own[0], yy - own[1]) <= tol * k] = -1.0
+    inv = pose.inverse()
+    centre = np.asarray(element.center, float)
+    size = np.asarray(element.size, float)
+    # Places where the correlation peaks within half the box's size each way: a larger box of
+    # the same height nearby is one ridge of high scores, and counts once.
+    near = np.ones((kh // 2 * 2 + 1, kw // 2 * 2 + 1), np.uint8)
+    peaks = (score >= cv2.dilate(score, near)) & (score > SEEK_LEAST_SCORE)
+    py, px_ = np.nonzero(peaks)
+    for j in np.argsort(-score[py, px_])[:SEEK_PLACES]:
+        d_px = np.array([px_[j], py[j]], float) - own
+        moved_to = inv.apply(pose.apply(centre[None]) + d_px / k)[0]
+        shift = moved_to - centre
+        taken = any(np.hypot(*(np.asarray(oc) - moved_to)) <= tol and np.all(np.abs(np.asarray(os_) / size - 1) <= 0.1)
+                    for oc, os_ in others)
+        if not taken and ink_probe(grey, dpi, element, pose, shift=shift) == "present":
+            return "moved", (float(shift[0]), float(shift[1]))
+    return None
+
+
+def legible(match, template_elements, grey: np.ndarray, dpi: float, worst_dpi: float, tol: float = 5.67,
+            reach: float = 70.9):
+    """The offending elements of a photo too small to read that are judged all the same, because
+    the photo shows the fault plainly (see :func:`layoutcheck.verdict.too_small`).
+
+    ``match`` is on the page ``grey`` (its pose: template points -> points of ``grey``). At such
+    a resolution the extractor loses thin rules, so two boxes merge into one and a box goes
+    unfound; what it reports is checked on the grey image at the place the pose puts the
+    element (:func:`ink_probe`). A box resized counts when its shorter side spans
+    :data:`LEGIBLE_SIDE_PX` pixels at ``worst_dpi``; an element moved when its place does not show
+    it whole; an element missing when its place shows paper on every side, or when the box is
+    found whole nearby, shrunk, grown or moved (:func:`seek_box`, within ``reach`` points; farther
+    than ``tol`` is moved), it is said so instead.
+
+    Returns ``(elements, ids)``: the match's element results (those found by the seeking with
+    their new status) and the ids judged.
+    """
+    from dataclasses import replace
+
+    from .elements import MM_PER_POINT
+
+    by_id = {e.id: e for e in template_elements}
+    boxes = [e for e in template_elements if e.kind in ("box", "checkbox")]
+    out = set()
+    results = []
+    for r in match.elements:
+        results.append(r)
+        e = by_id.get(r.id)
+        if e is None or not r.judged or r.status == "ok" or e.kind not in ("box", "checkbox", "hline", "vline"):
+            continue
+        if r.status == "resized":
+            if e.kind in ("box", "checkbox") and min(e.size) / POINTS_PER_INCH * worst_dpi >= LEGIBLE_SIDE_PX:
+                out.add(r.id)
+            continue
+        seen = ink_probe(grey, dpi, e, match.pose)
+        if r.status == "moved":
+            if seen != "present":
+                out.add(r.id)
+            continue
+        if seen == "present":
+            continue
+        found = None
+        if e.kind in ("box", "checkbox") and min(e.size) / POINTS_PER_INCH * worst_dpi >= LEGIBLE_SIDE_PX:
+            others = [(o.center, o.size) for o in boxes if o.id != e.id]
+            found = seek_box(grey, dpi, e, match.pose, others, reach, tol)
+        if found is not None and found[0] == "resized":
+            results[-1] = replace(r, status="resized", size_ratio=float(found[1]))
+            out.add(r.id)
+        elif found is not None:
+            dx, dy = found[1]
+            results[-1] = replace(r, status="moved", offset_mm=(dx * MM_PER_POINT, dy * MM_PER_POINT))
+            out.add(r.id)
+        elif seen == "absent":
+            out.add(r.id)
+    return tuple(results), frozenset(out)

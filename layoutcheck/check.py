@@ -22,7 +22,7 @@ from .identify import IdentifySettings
 from .sources import (FAINT_CONTRAST, USUAL_DPI, PageError, RasterPage, ReadLimits, VectorPage, page_content_problem,
                       page_contrast, read_pages, render_pdf_page, square_pixels, where)
 from .template import LearnError, Template, TemplatePage, template_page, with_raster_sections
-from .verdict import SEVERITY, Finding, Tolerances, judge, offending, people_first, too_small
+from .verdict import SEVERITY, UNCLEAR_WHEN_SMALL, Finding, Tolerances, judge, offending, people_first, too_small
 
 #: Resolution at which a born-digital reference is rendered to learn how scans of it look
 #: (200 dpi: common practice for office scans; the raster extractor works in mm, so scans at
@@ -445,26 +445,32 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
 #: that takes the sheet's long side as 11.35 in, so the form is at scale 1 within the spread of
 #: paper sizes (A5's 8.27 in to A3's 16.5 in long side: ISO 216; Letter 11 in: ANSI).
 SHEET_SCALE_RANGE = (0.7, 1.45)
+#: ... and only poses that put most of the form on the sheet (a turn by a quarter that would put
+#: a portrait form across a portrait sheet is not followed).
+SHEET_ON_PAGE = 0.8
 
 
 def camera_settings(settings: CheckSettings, sheet_found: bool = False) -> CheckSettings:
     """Settings for a camera capture: the perspective is freed whenever it is measurable, the
     agreeing set is grown region by region from the vote's cluster, and the vote takes x and y
     scales up to 15 % apart (the flattened sheet's sides are means of sides seen in perspective).
-    With the sheet found, only scales near 1 are considered (:data:`SHEET_SCALE_RANGE`): a
+    With the sheet found, only scales near 1 and poses that put the form on the sheet are
+    considered (:data:`SHEET_SCALE_RANGE`, :data:`SHEET_ON_PAGE`): a
     filled-in photo's handwriting must not pair the form's small labels with large scribbles;
     for the same reason printed text does not vote for the scale."""
     from dataclasses import replace
 
-    extra = {"scale_range": SHEET_SCALE_RANGE} if sheet_found else {}
+    extra = {"scale_range": SHEET_SCALE_RANGE, "min_on_page": SHEET_ON_PAGE} if sheet_found else {}
     return replace(settings, solver=replace(settings.solver, perspective_min=0.0, grow=True, max_anisotropy=0.15,
-                                            text_scale=False, **extra))
+                                            spread=True, text_scale=False, **extra))
 
 
 def record_for(source: str, page_no: int, found: PageElements, templates: Sequence[Template],
                settings: CheckSettings, t0: float | None = None, page=None, capture=None) -> dict:
     """The record of one page from its found elements (``capture``: see :mod:`layoutcheck.capture`;
     the found elements are then those of the capture's page)."""
+    from dataclasses import replace
+
     t0 = time.perf_counter() if t0 is None else t0
     camera = capture is not None and capture.kind == "camera"
     solve_settings = camera_settings(settings, capture.sheet_px is not None) if camera else settings
@@ -480,20 +486,27 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
     read = page if capture is None else capture.page
     if isinstance(read, RasterPage) and match.pose is not None:
         found, match = look_again(read, found, tp, match, solve_settings)
+    on_read = match
     if capture is not None and match.pose is not None:
-        from dataclasses import replace
-
         # One pose from template to input: the match on the capture's page, then its place on the input.
         match = replace(match, pose=match.pose.compose(capture.to_input))
     input_size = (found.width, found.height) if capture is None else (page.width, page.height)
     camera = camera or (match.pose is not None and match.pose.is_projective)
     readability = None
+    plain: frozenset = frozenset()
     if camera and match.pose is not None and isinstance(page, RasterPage):
+        from .capture import legible
         from .capture import readability as measure
 
         readability = measure(match.pose, (tp.width, tp.height), page.dpi)
+        if too_small(readability, settings.tolerances) and isinstance(read, RasterPage):
+            # Too small to read as a whole, yet a box moved, gone or shrunk may still show plainly.
+            tol = settings.tolerances.element_tolerance_mm / MM_PER_POINT
+            elements, plain = legible(on_read, tp.elements_for(found.source), read.image, read.dpi,
+                                      readability.worst_dpi, tol, solve_settings.solver.status_gate)
+            match = replace(match, elements=elements)
     verdict, findings = judge(match, settings.tolerances, (tp.width, tp.height), input_size, zones=tp.zones,
-                              camera=camera, readability=readability)
+                              camera=camera, readability=readability, legible=plain)
     recognised = verdict != "unrecognised"
     if recognised:
         findings += routing_findings(index, ident, found, settings)
@@ -513,8 +526,8 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         "support": round(match.support, 4),
         # Largest displacement of the smooth residual field (paper not flat), mm.
         "warp_mm": round(match.field.largest_mm, 2) if recognised and match.field is not None else None,
-        "offending": offending(match, ("missing", "resized") if camera and too_small(readability, settings.tolerances)
-                               else ()) if recognised else [],
+        "offending": offending(match, UNCLEAR_WHEN_SMALL if camera and too_small(readability, settings.tolerances)
+                               else (), plain) if recognised else [],
         "sections": [
             {"id": s.id, "name": s.name, "status": s.status, "offset_mm": [round(v, 2) for v in s.offset_mm],
              "support": round(s.support, 4), "elements": s.elements}
@@ -638,20 +651,30 @@ def revision_differences(tp: TemplatePage, match: Match, other_tp: TemplatePage,
 
 
 #: Most resolution at which a photo is read a second time, in its template's frame (dpi).
-SECOND_READING_DPI = 250.0
+SECOND_READING_DPI = 200.0
 #: Scales considered in the second reading (see :func:`read_again`).
 SECOND_READING_SCALES = (0.6, 1.6)
+
+
+def clean(match: Match) -> bool:
+    """Whether every judged element of a match is in place."""
+    return match.pose is not None and all(e.status == "ok" for e in match.elements if e.judged)
 
 
 def second_reading(index, ident, page, capture, found, settings):
     """:func:`read_again` for the chosen template page. A page that agrees with none well enough
     (its first reading may have missed the rules that tell the forms apart) is read again for
     each of the three template pages tried that it agreed with best; the best agreeing is kept.
-    Returns ``(identification, capture, found, match)``, the identification's best being the
-    template page kept, with the second reading's match."""
+    A page whose first reading finds every element in place under a perspective is not read
+    again. Returns ``(identification, capture, found, match)``, the identification's best being
+    the template page kept, with the second reading's match."""
     from dataclasses import replace
 
     best = ident.best
+    if clean(best.match) and best.match.pose.is_projective:
+        # Every element in place under a perspective: the sheet's outline was good, and a second
+        # reading would find the same.
+        return ident, capture, found, best.match
     if best.match.support >= settings.tolerances.min_support:
         firsts = [best]
     else:
@@ -787,8 +810,11 @@ def handoff(rec: dict, page, found: PageElements, tp: TemplatePage, match: Match
             # centre (its file states none; a usual value is read back as written).
             eff = (rec.get("effective_dpi") or {}).get("centre")
             dpi = settings.normalise_dpi or (float(min(USUAL_DPI, key=lambda u: abs(u - eff))) if eff else None)
+            # A photo's sheet may bend: its bend is taken out too, so the page comes out flat.
+            bend = match.field if rec.get("capture") == "camera" else None
             rec["normalised"] = normalise_page(page, match.pose, (tp.width, tp.height), settings.normalise_dir,
-                                               dpi, settings.normalise_format, replace=settings.normalise_replace)
+                                               dpi, settings.normalise_format, replace=settings.normalise_replace,
+                                               field=bend)
     return rec
 
 

@@ -110,6 +110,14 @@ class SolverSettings:
     #: Another element this close to a rule's end meets it (about 1.5 mm): the rule's extent
     #: there is not judged (see :func:`free_rule_ends`).
     rule_meet: float = 4.25
+    #: Spread the pose's weight over the page (see :func:`spread_weights`): a page whose paper
+    #: bends is fitted as a whole, not to its densest table (camera captures set it).
+    spread: bool = False
+    #: Least share of the template's elements' extent a vote's pose must put on the input page
+    #: to be followed, and least ratio of the turned form's shape (width over height of the box
+    #: around it) to the page's for a turn to be voted for at all (0: any). A photo whose sheet
+    #: was found shows the whole form on it, in the sheet's shape.
+    min_on_page: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -505,7 +513,7 @@ def spatial_pairs(pred: np.ndarray, tmpl: FrameArrays, inp: FrameArrays, radius:
 
 
 def vote_pose(tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarray,
-              settings: SolverSettings = SolverSettings()) -> list[Hypothesis]:
+              settings: SolverSettings = SolverSettings(), allow=None) -> list[Hypothesis]:
     """Pose hypotheses from frame votes, best first.
 
     Parameters
@@ -514,6 +522,8 @@ def vote_pose(tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarra
         Template and input elements.
     ti, ii : (P,) int arrays
         Candidate correspondences (template index, input index).
+    allow : callable, optional
+        ``allow(rotation_deg) -> bool``: the turns considered at all (default any).
 
     Returns
     -------
@@ -529,6 +539,8 @@ def vote_pose(tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarra
         hist = _peaks_1d(prot, ti[pidx], settings.rotation_bin_deg, -180.0, 180.0, circular=True)
         smooth = hist + 0.5 * (np.roll(hist, 1) + np.roll(hist, -1))
         order = np.argsort(-smooth)
+        if allow is not None:
+            order = np.array([b for b in order if allow(-180.0 + (b + 0.5) * settings.rotation_bin_deg)], int)
         rotations = []
         for b in order:
             if smooth[b] < 0.5 * smooth[order[0]] or len(rotations) >= settings.max_hypotheses:
@@ -539,7 +551,7 @@ def vote_pose(tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarra
             near = np.abs(_circ_diff(prot, centre)) <= 1.0 * settings.rotation_bin_deg
             rotations.append(float(centre + np.median(_circ_diff(prot[near], centre))))
     else:
-        rotations = [0.0, 90.0, 180.0, -90.0]
+        rotations = [r for r in (0.0, 90.0, 180.0, -90.0) if allow is None or allow(r)]
 
     hyps = []
     for rot in rotations:
@@ -671,11 +683,40 @@ def assign(pred: np.ndarray, inp_centers: np.ndarray, ti: np.ndarray, ii: np.nda
     return out
 
 
+#: Cells per side of the grid over which :func:`spread_weights` evens the weight out, and the
+#: elements per cell that count in full.
+SPREAD_CELLS = 8
+SPREAD_PER_CELL = 3
+
+
+def spread_weights(points: np.ndarray, w: np.ndarray, cells: int = SPREAD_CELLS,
+                   per_cell: int = SPREAD_PER_CELL) -> np.ndarray:
+    """Weights evened out over the area the points cover.
+
+    The points' bounding box is cut into ``cells`` x ``cells`` cells; in a cell holding ``n``
+    points each weight is multiplied by ``min(1, per_cell / n)``. A table of a hundred boxes then
+    counts about as much as a few elements elsewhere: when the paper bends, no pose fits every
+    part, and the pose fitted over the whole form (its bend left to the residual field) is not
+    pulled towards the densest part, which would tilt it at the page's far edges.
+    """
+    pts = np.asarray(points, float).reshape(-1, 2)
+    if len(pts) == 0:
+        return np.asarray(w, float)
+    lo, hi = pts.min(0), pts.max(0)
+    ij = np.clip(((pts - lo) / np.maximum(hi - lo, 1e-9) * cells).astype(int), 0, cells - 1)
+    cell = ij[:, 0] * cells + ij[:, 1]
+    n = np.bincount(cell, minlength=cells * cells)[cell]
+    return np.asarray(w, float) * np.minimum(1.0, per_cell / n)
+
+
 def fit_pose(src: np.ndarray, dst: np.ndarray, w: np.ndarray, settings: SolverSettings,
              projective: bool = True) -> Pose | None:
     """Weighted similarity; affine when the x and y scales measurably differ; projective when
     the perspective is measurable and explains the elements clearly better (model choice by the
-    share of weighted squared residual removed, as between similarity and affine)."""
+    share of weighted squared residual removed, as between similarity and affine). With
+    ``settings.spread`` the weights are evened out over the page first (:func:`spread_weights`)."""
+    if settings.spread:
+        w = spread_weights(src, w)
     sim = Pose.from_pairs(src, dst, "similarity", w)
     if not sim:
         return None
@@ -893,9 +934,25 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
         return Match(None, 0.0, _all_missing(tmpl_els, sections, judged), (), reason="no elements found on the page")
     tmpl, inp = FrameArrays.of(tmpl_els), FrameArrays.of(inp_els)
 
+    allow = extent = None
+    if settings.min_on_page > 0 and page_size is not None:
+        extent = _extent(tmpl_els)
+        ew, eh = extent[2] - extent[0], extent[3] - extent[1]
+
+        def allow(rot: float) -> bool:
+            # The form turned by ``rot`` has about the page's shape (a portrait form turned a
+            # quarter does not lie on a portrait sheet).
+            a = math.radians(rot)
+            bw, bh = abs(ew * math.cos(a)) + abs(eh * math.sin(a)), abs(ew * math.sin(a)) + abs(eh * math.cos(a))
+            r1, r2 = bw / max(bh, 1e-9), page_size[0] / max(page_size[1], 1e-9)
+            return min(r1, r2) / max(r1, r2) >= settings.min_on_page
+
     def hypotheses(voters: FrameArrays):
         ti, ii = gated_pairs(voters, inp, settings)
-        hyps = _strong(vote_pose(voters, inp, ti, ii, settings))
+        hyps = vote_pose(voters, inp, ti, ii, settings, allow)
+        if allow is not None:
+            hyps = [h for h in hyps if share_on_page(h.pose, extent, page_size) >= settings.min_on_page]
+        hyps = _strong(hyps)
         return ([_most_assigned(hyps, voters, inp, settings)] if len(hyps) > 1 else hyps), ti
 
     hyps, ti = hypotheses(tmpl)
@@ -1151,6 +1208,23 @@ def judge_rules(tmpl: FrameArrays, inp: FrameArrays, rules: np.ndarray, partners
             + np.where(free[:, 1], np.clip(along[:, 1] - half, 0.0, None), 0.0)) / (2 * half)
     span_ratio = np.where(covered < 1.0 - size_tol, covered, covered + over)
     return across, span_ratio
+
+
+def _extent(elements) -> tuple[float, float, float, float]:
+    """Box around the elements' frames (x0, top, x1, bottom), points."""
+    frames = np.array([e.frame for e in elements], float)
+    return (float(frames[:, 0].min()), float(frames[:, 1].min()), float(frames[:, 2].max()), float(frames[:, 3].max()))
+
+
+def share_on_page(pose: Pose, extent: tuple[float, float, float, float], page_size: tuple[float, float],
+                  n: int = 16) -> float:
+    """Share of an ``n`` x ``n`` grid over ``extent`` (template points) that ``pose`` puts on a
+    page of ``page_size`` points."""
+    x0, top, x1, bottom = extent
+    gx, gy = np.meshgrid(np.linspace(x0, x1, n), np.linspace(top, bottom, n))
+    p = pose.apply(np.column_stack([gx.ravel(), gy.ravel()]))
+    w, h = page_size
+    return float(((p[:, 0] >= 0) & (p[:, 0] <= w) & (p[:, 1] >= 0) & (p[:, 1] <= h)).mean())
 
 
 def _on_page(elements, shift: np.ndarray, pose: Pose, page_size: tuple[float, float], margin: float = 2.83) -> np.ndarray:

@@ -127,8 +127,46 @@ def resample(image: np.ndarray, out_to_in: np.ndarray, size: tuple[int, int], bi
     return out
 
 
+def resample_bent(image: np.ndarray, out_to_in: np.ndarray, field, output_dpi: float, size: tuple[int, int],
+                  step_px: int = 8) -> np.ndarray:
+    """Sample ``image`` through a residual field and a map (``cv2.remap``, bicubic as :func:`resample`).
+
+    Output pixel -> template point ``t`` -> ``t + field(t)`` (where the bent paper shows that
+    point; the field held at its value on its extent's edge beyond it) -> input pixel by
+    ``out_to_in`` (continuous output px -> continuous input px, as for :func:`resample`). The
+    map is computed every ``step_px`` output pixels and interpolated between (the field is a
+    cubic at most: smooth over a few millimetres). An input much finer than the output is
+    reduced by area averaging first, as in :func:`resample`.
+    """
+    m = np.asarray(out_to_in, dtype=float)
+    img = np.ascontiguousarray(image, dtype=np.uint8)
+    w, h = int(size[0]), int(size[1])
+    step = float(np.sqrt(np.prod(Pose(m).local_scales(np.array([[w / 2.0, h / 2.0]]))[0])))
+    if step > 1.5:
+        ih, iw = img.shape
+        nw, nh = max(1, int(round(iw / step))), max(1, int(round(ih / step)))
+        img = cv2.resize(img, (nw, nh), interpolation=cv2.INTER_AREA)
+        m = np.diag([nw / iw, nh / ih, 1.0]) @ m
+    gx = np.arange(0, w + step_px, step_px, dtype=float)
+    gy = np.arange(0, h + step_px, step_px, dtype=float)
+    xx, yy = np.meshgrid(gx + 0.5, gy + 0.5)  # output pixel centres
+    k = POINTS_PER_INCH / output_dpi
+    t = np.column_stack([xx.ravel(), yy.ravel()]) * k
+    x0, top, x1, bottom = field.extent
+    d = field.at(np.column_stack([np.clip(t[:, 0], x0, x1), np.clip(t[:, 1], top, bottom)]))
+    src = Pose(m).apply((t + d) / k)
+    # Coarse grid -> every output pixel: node (i, j) sits at output pixel (j, i) * step_px.
+    grid_x, grid_y = np.meshgrid(np.arange(w, dtype=np.float32) / step_px, np.arange(h, dtype=np.float32) / step_px)
+    nodes_x = src[:, 0].reshape(xx.shape).astype(np.float32)
+    nodes_y = src[:, 1].reshape(xx.shape).astype(np.float32)
+    mx = cv2.remap(nodes_x, grid_x, grid_y, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+    my = cv2.remap(nodes_y, grid_x, grid_y, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+    # Continuous input coordinates -> OpenCV's pixel-centre ones.
+    return cv2.remap(img, mx - 0.5, my - 0.5, cv2.INTER_CUBIC, borderMode=cv2.BORDER_CONSTANT, borderValue=255)
+
+
 def normalise_image(image: np.ndarray, input_dpi: float | tuple[float, float], pose: Pose, template_size_pt: tuple[float, float],
-                    output_dpi: float | None = None, bitonal: bool = False) -> Normalised:
+                    output_dpi: float | None = None, bitonal: bool = False, field=None) -> Normalised:
     """Resample an input page image into the template's frame.
 
     Parameters
@@ -144,10 +182,16 @@ def normalise_image(image: np.ndarray, input_dpi: float | tuple[float, float], p
         Default: ``input_dpi`` (its finer axis when given per axis); output pixels are square.
     bitonal : bool
         Input is black and white; the output stays so.
+    field : ResidualField, optional
+        The bend left after the pose (:mod:`layoutcheck.field`): taken out too, so a bent
+        sheet comes out flat (:func:`resample_bent`). Not with ``bitonal``.
     """
     dpi = float(output_dpi or np.max(input_dpi))
     m = output_to_input_px(pose, input_dpi, dpi)
-    out = resample(image, m, output_size(template_size_pt, dpi), bitonal)
+    size = output_size(template_size_pt, dpi)
+    if field is not None and not bitonal:
+        return Normalised(resample_bent(image, m, field, dpi, size), dpi, bitonal)
+    out = resample(image, m, size, bitonal)
     return Normalised(out, dpi, bitonal)
 
 
@@ -211,7 +255,7 @@ def claim_path(path: Path, replace: bool = False, tries: int = 1000) -> Path:
 
 
 def normalise_page(page, pose: Pose, template_size_pt: tuple[float, float], out_dir: str | os.PathLike,
-                   dpi: float | None = None, fmt: str = "png", limits=None, replace: bool = False) -> dict:
+                   dpi: float | None = None, fmt: str = "png", limits=None, replace: bool = False, field=None) -> dict:
     """Write the normalised image of one input page; the record's ``normalised`` field.
 
     ``page`` is a :class:`~layoutcheck.sources.RasterPage` (resampled at its own dpi, or ``dpi``)
@@ -219,7 +263,8 @@ def normalise_page(page, pose: Pose, template_size_pt: tuple[float, float], out_
     first). Returns ``{"path", "dpi"}``, or ``{"path": None, "dpi", "error"}`` when the page
     could not be rendered or written. The file is named by :func:`output_path`; an existing file
     is never replaced unless ``replace`` (a resumed run redoing the page): a clash gets a
-    numbered name (:func:`claim_path`).
+    numbered name (:func:`claim_path`). A residual ``field`` is taken out too (see
+    :func:`normalise_image`).
     """
     from .sources import PageError, RasterPage, ReadLimits, VectorPage, render_pdf_page, where
 
@@ -234,7 +279,7 @@ def normalise_page(page, pose: Pose, template_size_pt: tuple[float, float], out_
             raster = page
         else:
             return {"path": None, "dpi": out_dpi, "error": f"{where(page.source, page.page)}: no image to normalise"}
-        norm = normalise_image(raster.image, raster.dpi_xy, pose, template_size_pt, out_dpi, bool(raster.bitonal))
+        norm = normalise_image(raster.image, raster.dpi_xy, pose, template_size_pt, out_dpi, bool(raster.bitonal), field)
         os.makedirs(out_dir, exist_ok=True)
         target = claim_path(output_path(out_dir, page.source, page.page, fmt), replace)
         try:

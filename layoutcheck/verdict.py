@@ -126,9 +126,15 @@ def part_words(x: float, y: float, size: tuple[float, float]) -> str:
     return " ".join(p for p in (row, col) if p) or "middle"
 
 
+#: Statuses the extractor may give an element in place on a photo too small to read (a rule
+#: lost merges two boxes into one; a box lost is missing): judged only when the photo shows the
+#: fault plainly (see :func:`layoutcheck.capture.legible`).
+UNCLEAR_WHEN_SMALL = ("missing", "resized", "moved")
+
+
 def too_small(readability, tolerances: Tolerances) -> bool:
-    """Whether a camera capture shows part of its form below the least resolution: its missing
-    and resized elements are then not judged (print that small cannot be made out reliably)."""
+    """Whether a camera capture shows part of its form below the least resolution: its missing,
+    resized and moved elements are then judged only where the photo shows the fault plainly."""
     return readability is not None and readability.worst_dpi < tolerances.min_dpi
 
 
@@ -211,13 +217,16 @@ def cut_off_words(cut: CutOff) -> str:
 
 
 def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, float],
-          input_size: tuple[float, float], zones=(), camera: bool = False, readability=None) -> tuple[str, list[Finding]]:
+          input_size: tuple[float, float], zones=(), camera: bool = False, readability=None,
+          legible: frozenset = frozenset()) -> tuple[str, list[Finding]]:
     """Verdict and findings of a matched page, most severe finding first.
 
     ``zones`` (the template page's, each with ``name`` and ``frame``) are named when the page is
     incomplete. A camera capture (``camera``) is always turned and scaled: its turn, scale and
     shift are not judged. Its ``readability`` (:class:`layoutcheck.capture.Readability`) is: too
-    small or too oblique a photo must be taken again (verdict ``retake``).
+    small or too oblique a photo must be taken again (verdict ``retake``); on a photo too small,
+    missing, resized and moved elements are judged only when they are in ``legible`` (ids shown plainly
+    all the same, see :func:`layoutcheck.capture.legible`), the others said in one finding.
     """
     findings: list[Finding] = []
     if match.pose is None or match.support < tolerances.min_support:
@@ -239,7 +248,7 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
         if not e.judged or e.status == "ok" or (e.in_moved_section and e.section in moved_sections and e.status == "moved"):
             continue
         who = f"{e.kind.capitalize()} '{e.caption}' ({e.id})" if e.caption else f"{e.kind.capitalize()} ({e.id})"
-        if blurred and e.status in ("missing", "resized"):
+        if blurred and e.status in UNCLEAR_WHEN_SMALL and e.id not in legible:
             unclear.append(who)
             continue
         if e.status == "missing":
@@ -304,11 +313,11 @@ def judge(match: Match, tolerances: Tolerances, template_size: tuple[float, floa
     return verdict, findings
 
 
-def offending(match: Match, unjudged: tuple[str, ...] = ()) -> list[dict]:
+def offending(match: Match, unjudged: tuple[str, ...] = (), legible: frozenset = frozenset()) -> list[dict]:
     """Offending elements and sections for the record; a section moved as one is one entry.
 
-    Elements whose status is in ``unjudged`` are left out (missing and resized ones of a photo
-    too small to read, see :func:`too_small`).
+    Elements whose status is in ``unjudged`` are left out (missing, resized and moved ones of a photo
+    too small to read, see :func:`too_small`), except those in ``legible``.
     """
     out = []
     moved = {s.id: s for s in match.sections if s.status == "moved"}
@@ -317,7 +326,7 @@ def offending(match: Match, unjudged: tuple[str, ...] = ()) -> list[dict]:
                     "frame": [round(v, 2) for v in s.frame], "offset_mm": [round(v, 2) for v in s.offset_mm],
                     "size_ratio": None})
     for e in sorted(match.elements, key=people_first):
-        if not e.judged or e.status == "ok" or e.status in unjudged:
+        if not e.judged or e.status == "ok" or (e.status in unjudged and e.id not in legible):
             continue
         if e.in_moved_section and e.section in moved and e.status == "moved":
             continue

@@ -87,12 +87,18 @@ def _rotate(pts: np.ndarray, angle_deg: float) -> np.ndarray:
     return pts @ np.array([[c, s], [-s, c]])  # row vectors: p @ R.T with R = [[c, -s], [s, c]]
 
 
-def _merge_axis(pos: np.ndarray, lo: np.ndarray, hi: np.ndarray, width: np.ndarray, st: AssemblySettings):
-    """Merge collinear axis-aligned pieces: returns rows ``(pos, lo, hi, width)``."""
+def _merge_axis(pos: np.ndarray, lo: np.ndarray, hi: np.ndarray, width: np.ndarray, st: AssemblySettings,
+                slope: np.ndarray | None = None):
+    """Merge collinear axis-aligned pieces: returns rows ``(pos, lo, hi, width, slope)``.
+
+    ``pos`` is each piece's place across at its middle and ``slope`` how its place across changes
+    along it; a merged row's ``pos`` is its place across at the middle of its span.
+    """
     if len(pos) == 0:
-        return np.zeros((0, 4))
+        return np.zeros((0, 5))
+    slope = np.zeros(len(pos)) if slope is None else slope
     order = np.argsort(pos, kind="stable")
-    pos, lo, hi, width = pos[order], lo[order], hi[order], width[order]
+    pos, lo, hi, width, slope = pos[order], lo[order], hi[order], width[order], slope[order]
     # Group by position across the rule: a new group where the gap to the previous exceeds tol.
     tol = np.maximum(st.same_line, width)
     breaks = np.flatnonzero(np.diff(pos) > tol[1:]) + 1
@@ -106,18 +112,32 @@ def _merge_axis(pos: np.ndarray, lo: np.ndarray, hi: np.ndarray, width: np.ndarr
                 cur.append(k)
                 end = max(end, hi[k])
             else:
-                out.append(_merged_row(pos, lo, hi, width, cur))
+                out.append(_merged_row(pos, lo, hi, width, slope, cur))
                 cur = [k]
                 end = hi[k]
-        out.append(_merged_row(pos, lo, hi, width, cur))
+        out.append(_merged_row(pos, lo, hi, width, slope, cur))
     return np.array(out, dtype=float)
 
 
-def _merged_row(pos, lo, hi, width, idx):
+def _merged_row(pos, lo, hi, width, slope, idx):
     idx = np.asarray(idx)
     length = np.maximum(hi[idx] - lo[idx], 1e-6)
-    return (float(np.average(pos[idx], weights=length)), float(lo[idx].min()), float(hi[idx].max()),
-            float(width[idx].max()))
+    a, b = float(lo[idx].min()), float(hi[idx].max())
+    s = float(np.average(slope[idx], weights=length))
+    # Each piece's place across, carried along the common slope to the row's middle.
+    at_mid = pos[idx] + s * ((a + b) / 2 - (lo[idx] + hi[idx]) / 2)
+    return (float(np.average(at_mid, weights=length)), a, b, float(width[idx].max()), s)
+
+
+def _crossing(hrow: np.ndarray, vrow: np.ndarray):
+    """Where horizontal and vertical rows (see :func:`_merge_axis`; arrays of rows broadcast
+    against each other) cross, each taken as the straight line through its middle with its
+    slope: ``(x, y)``."""
+    hy, hm, hs = hrow[..., 0], (hrow[..., 1] + hrow[..., 2]) / 2, hrow[..., 4]
+    vx, vm, vs = vrow[..., 0], (vrow[..., 1] + vrow[..., 2]) / 2, vrow[..., 4]
+    # y = hy + hs (x - hm) and x = vx + vs (y - vm), solved together.
+    x = (vx + vs * (hy - hs * hm - vm)) / (1.0 - hs * vs)
+    return x, hy + hs * (x - hm)
 
 
 def _cells(h: np.ndarray, v: np.ndarray, st: AssemblySettings) -> list[tuple[int, int, int, int]]:
@@ -126,11 +146,13 @@ def _cells(h: np.ndarray, v: np.ndarray, st: AssemblySettings) -> list[tuple[int
         return []
     hy, hx0, hx1 = h[:, 0], h[:, 1], h[:, 2]
     vx, vy0, vy1 = v[:, 0], v[:, 1], v[:, 2]
+    # Where each pair crosses (each rule with its slope, see _crossing).
+    cx, cy = _crossing(h[:, None, :], v[None, :, :])
     meets = (
-        (vx[None, :] >= hx0[:, None] - st.meet)
-        & (vx[None, :] <= hx1[:, None] + st.meet)
-        & (hy[:, None] >= vy0[None, :] - st.meet)
-        & (hy[:, None] <= vy1[None, :] + st.meet)
+        (cx >= hx0[:, None] - st.meet)
+        & (cx <= hx1[:, None] + st.meet)
+        & (cy >= vy0[None, :] - st.meet)
+        & (cy <= vy1[None, :] + st.meet)
     )
     h_order = np.argsort(hy)
     v_order = np.argsort(vx)
@@ -225,11 +247,13 @@ def assemble(
     is_v = np.abs(np.abs(a180) - 90.0) <= settings.axis_tolerance_deg
     is_o = ~(is_h | is_v)
 
+    # A rule is not quite parallel to the page's axes when the page bends or is seen in slight
+    # perspective: each keeps its slope, so the cells of a table follow their rules.
     h = _merge_axis((p0[is_h, 1] + p1[is_h, 1]) / 2, np.minimum(p0[is_h, 0], p1[is_h, 0]),
-                    np.maximum(p0[is_h, 0], p1[is_h, 0]), wid[is_h], settings)
+                    np.maximum(p0[is_h, 0], p1[is_h, 0]), wid[is_h], settings, d[is_h, 1] / d[is_h, 0])
     v = _merge_axis((p0[is_v, 0] + p1[is_v, 0]) / 2, np.minimum(p0[is_v, 1], p1[is_v, 1]),
-                    np.maximum(p0[is_v, 1], p1[is_v, 1]), wid[is_v], settings)
-    # Columns of h and v: position across, start, end, width.
+                    np.maximum(p0[is_v, 1], p1[is_v, 1]), wid[is_v], settings, d[is_v, 0] / d[is_v, 1])
+    # Columns of h and v: position across (at the middle), start, end, width, slope.
     cells = _cells(h, v, settings)
 
     out: list[Element] = []
@@ -259,16 +283,18 @@ def assemble(
         h_spans[i2].append((x0, x1))
         v_spans[j].append((top, bottom))
         v_spans[j2].append((top, bottom))
-        w, hgt = x1 - x0, bottom - top
+        # The cell's corners where its rules cross: its centre and mean sides.
+        tl, tr, br, bl = (np.array(_crossing(h[a], v[b]), float) for a, b in ((i, j), (i, j2), (i2, j2), (i2, j)))
+        cx, cy = (tl + tr + br + bl) / 4
+        w, hgt = ((tr[0] - tl[0]) + (br[0] - bl[0])) / 2, ((bl[1] - tl[1]) + (br[1] - tr[1])) / 2
         square = 0.75 <= w / hgt <= 1.33
         kind = "checkbox" if square and max(w, hgt) <= settings.checkbox_max else "box"
-        emit(kind, (x0 + x1) / 2, (top + bottom) / 2, w, hgt,
-             (min(v[j, 3], v[j2, 3]), min(h[i, 3], h[i2, 3])))
+        emit(kind, cx, cy, w, hgt, (min(v[j, 3], v[j2, 3]), min(h[i, 3], h[i2, 3])))
 
-    for i, (y, lo, hi, wd) in enumerate(h):
+    for i, (y, lo, hi, wd, _) in enumerate(h):
         if hi - lo >= settings.min_length and _covered(lo, hi, _grown(h_spans[i], settings.meet)) < settings.covered_share:
             emit("hline", (lo + hi) / 2, y, hi - lo, wd, (None, wd))
-    for j, (x, lo, hi, wd) in enumerate(v):
+    for j, (x, lo, hi, wd, _) in enumerate(v):
         if hi - lo >= settings.min_length and _covered(lo, hi, _grown(v_spans[j], settings.meet)) < settings.covered_share:
             emit("vline", x, (lo + hi) / 2, wd, hi - lo, (wd, None))
     for k in np.flatnonzero(is_o):

@@ -491,7 +491,12 @@ def record_for(source: str, page_no: int, found: PageElements, templates: Sequen
         # One pose from template to input: the match on the capture's page, then its place on the input.
         match = replace(match, pose=match.pose.compose(capture.to_input))
     input_size = (found.width, found.height) if capture is None else (page.width, page.height)
-    camera = camera or (match.pose is not None and match.pose.is_projective)
+    # A page that states its resolution is a scan unless its perspective is more than paper
+    # not flat on the glass could explain: the pose departs from its best affine one by more than
+    # the warp tolerance at a corner of the form.
+    camera = camera or (match.pose is not None and match.pose.is_projective
+                        and match.pose.perspective_over((0.0, 0.0, tp.width, tp.height)) * MM_PER_POINT
+                        > settings.tolerances.max_warp_mm)
     readability = None
     plain: frozenset = frozenset()
     if camera and match.pose is not None and isinstance(page, RasterPage):

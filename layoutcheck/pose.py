@@ -221,6 +221,16 @@ class Pose:
         fit = Pose.from_pairs(grid, self.apply(grid), "affine")
         return fit if fit else Pose(self.jacobian_pose().matrix)
 
+    def perspective_over(self, frame) -> float:
+        """How far the pose departs from its best affine approximation over a frame: the largest
+        distance between the two at the frame's corners, in the units the pose maps to (0 for an
+        affine pose)."""
+        if not self.is_projective:
+            return 0.0
+        x0, top, x1, bottom = (float(v) for v in frame)
+        corners = np.array([[x0, top], [x1, top], [x1, bottom], [x0, bottom]])
+        return float(np.hypot(*(self.apply(corners) - self.affine_over(frame).apply(corners)).T).max())
+
     def jacobian_pose(self) -> "Pose":
         """First-order (affine) approximation at :attr:`anchor`."""
         a = np.array(self.anchor)

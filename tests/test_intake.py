@@ -334,6 +334,20 @@ def test_warped_intact_page_passes_with_its_bend_recorded(reference, template):
     assert 0.1 < rec["warp_mm"] < 2.0
 
 
+def test_a_warped_scan_that_states_its_dpi_stays_a_scan(reference, template):
+    """Paper not flat can make the projective pose fit best, but a page that states its
+    resolution is a camera capture only when its perspective is more than a bend could explain
+    (here under 2 mm against the best affine pose): never `retake` for a 150 dpi scan."""
+    models = []
+    for seed in range(4):
+        scan = simulate_scan(reference, dpi=150, warp_mm=1.5, rotation_deg=0.3, seed=20 + seed)
+        rec = check_page(RasterPage("warped.png", 1, scan.image, 150.0), [template])
+        assert rec["capture"] == "scan" and rec["effective_dpi"] is None
+        assert rec["verdict"] == "pass" and rec["offending"] == [], rec["findings"]
+        models.append(rec["pose"]["model"])
+    assert "projective" in models  # the case this guards against was met
+
+
 # -- rules judged as rules ------------------------------------------------------------------------
 def _el(i, kind, frame):
     return Element(id=f"{kind}-{i:03d}", kind=kind, frame=tuple(float(v) for v in frame), angle=0.0, source="raster")

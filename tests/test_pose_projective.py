@@ -144,3 +144,23 @@ def test_degenerate_projective_fits_say_why():
     assert bad.reason == "model points are collinear: a projective pose is not determined"
     few = Pose.from_pairs(line[:3], line[:3], "projective")
     assert few.reason == "projective pose needs at least 4 point pairs, got 3"
+
+
+def test_perspective_over_a_frame_against_a_numpy_least_squares_affine_fit():
+    """How far a keystone departs from its best affine pose: an affine map fitted by
+    ``numpy.linalg.lstsq`` on the same 9 x 9 grid (outside reference), at the frame's corners."""
+    w, h = 595.0, 842.0  # A4 in points (ISO 216: 210 x 297 mm; 1 pt = 1/72 in)
+    src = np.float32([[0, 0], [w, 0], [w, h], [0, h]])
+    dst = src.copy()
+    dst[0, 0] += 12.0  # the top edge 24 pt shorter: a phone tilted about the page's width
+    dst[1, 0] -= 12.0
+    pose = Pose(cv2.getPerspectiveTransform(src, dst).astype(float))
+    gx, gy = np.meshgrid(np.linspace(0, w, 9), np.linspace(0, h, 9))
+    grid = np.column_stack([gx.ravel(), gy.ravel()])
+    design = np.column_stack([grid, np.ones(len(grid))])
+    coef, *_ = np.linalg.lstsq(design, pose.apply(grid), rcond=None)
+    corners = np.column_stack([src, np.ones(4)]) @ coef
+    want = np.hypot(*(pose.apply(src) - corners).T).max()
+    assert pose.perspective_over((0, 0, w, h)) == pytest.approx(want, abs=1e-6)
+    assert 5.0 < want < 12.0
+    assert Pose(np.array([[1.0, 0.02, 3.0], [0.01, 0.98, -2.0], [0, 0, 1]])).perspective_over((0, 0, w, h)) == 0.0

@@ -486,6 +486,35 @@ def test_letters_in_a_line_of_text_are_not_boxes_even_when_drawn_light(tmp_path)
             assert any(np.allclose(e.frame, f, atol=1.5) for e in found), (dpi, f)
 
 
+def test_crossed_checkboxes_in_rows_and_columns_are_kept(tmp_path):
+    """Checkboxes of 4 mm drawn at 0.8 pt, crossed with a pen whose strokes run past their
+    corners, two rows of three beside captions (9 mm apart, so each stands a little over its own
+    height from the one below): every one is a checkbox, not a letter among letters."""
+    from reportlab.lib.pagesizes import A4
+    from reportlab.pdfgen import canvas
+
+    mm = 72.0 / 25.4  # points per mm (1 pt = 1/72 in, ISO 32000-1; 1 in = 25.4 mm)
+    path = tmp_path / "crossed.pdf"
+    H = A4[1]
+    c = canvas.Canvas(str(path), pagesize=A4)
+    cells = [(22 + 55 * i, 113 + 9 * r) for r in range(2) for i in range(3)]
+    for x, y in cells:
+        c.setLineWidth(0.8)
+        c.rect(x * mm, H - (y + 4) * mm, 4 * mm, 4 * mm)
+        c.setFont("Helvetica", 10)
+        c.drawString((x + 6) * mm, H - (y + 3.3) * mm, "North Quay (escorted)")
+        c.setLineWidth(1.6)
+        c.line((x - 0.5) * mm, H - (y - 0.5) * mm, (x + 4.5) * mm, H - (y + 4.5) * mm)
+        c.line((x - 0.5) * mm, H - (y + 4.5) * mm, (x + 4.5) * mm, H - (y - 0.5) * mm)
+    c.save()
+    for dpi in (150, 200, 300):
+        scan = simulate_scan(path, dpi=dpi, blur_sigma_px=0.6, seed=2)
+        found = [e for e in extract_raster(RasterPage("crossed.png", 1, scan.image, float(dpi))).elements
+                 if e.kind in ("box", "checkbox")]
+        got = sorted((round(e.frame[0] / mm), round(e.frame[1] / mm)) for e in found)
+        assert got == sorted(cells), dpi
+
+
 # -- cut-off pages --------------------------------------------------------------------------------
 def test_verdict_incomplete_ranks_just_below_mismatched():
     assert VERDICTS.index("incomplete") == VERDICTS.index("mismatched") + 1

@@ -86,13 +86,15 @@ def glyph_outlines(boxes: list[Element], sides: np.ndarray, ink: np.ndarray, dpi
 
         - more than the outline: a share of its ink (:attr:`RasterSettings.letter_off_outline`)
           lies off the band of the candidate's four sides (a letter's other bowl, its stem), or
-        - drawn heavy for a box: sides over :attr:`RasterSettings.letter_stroke` of its inside
-          (the ring of an O or a D; a checkbox's rules are a few hundredths of its side),
+        - drawn heavy for a box: sides, less the pixel of blur a scan adds, over
+          :attr:`RasterSettings.letter_stroke` of its inside (the ring of an O or a D; a
+          checkbox's rules are a few hundredths of its side),
 
         and that stands in a line of text: beside a piece of ink of about its own height (0.8 to
         1.25 times) on the same line, no farther off than that height (the next letter of a word:
         letters of a word stand closer than their height, common practice), which is not itself
-        the clean outline of a candidate (a row of checkboxes, heavy or blurred, is no word),
+        the clean or light outline of a candidate (a row of checkboxes, heavy or blurred,
+        crossed or ticked, is no word),
         unless the candidate is both heavy and more than its outline (a B beside an O). A
         checkbox beside its caption is a clean, light outline among letters smaller than itself.
     """
@@ -123,7 +125,9 @@ def glyph_outlines(boxes: list[Element], sides: np.ndarray, ink: np.ndarray, dpi
         if max(bw[lab], bh[lab]) > letter:
             clean[j] = True  # ruling larger than any letter: no word, and no letter beside one
             continue
-        heavy[j] = sides[j] > settings.letter_stroke * (min(e.size) - sides[j])
+        # A stroke measured on a scan is whole pixels, blur adding one: a checkbox of 4 mm drawn
+        # at 0.8 pt measures 0.38 mm at 200 dpi, a tenth of its inside.
+        heavy[j] = sides[j] - 1.0 / k > settings.letter_stroke * (min(e.size) - sides[j])
         # The band of the four sides, in the component's own window.
         x0, y0, w, h = (int(v) for v in stats[lab, :4])
         band = np.zeros((h, w), np.uint8)
@@ -135,7 +139,9 @@ def glyph_outlines(boxes: list[Element], sides: np.ndarray, ink: np.ndarray, dpi
         # the rounding of corners).
         clean[j] = off < settings.letter_off_outline / 3.0 * area[lab]
     rings = np.zeros(n, bool)
-    rings[own[(own > 0) & clean]] = True
+    # Outlines of candidates drawn light are no letters beside one, crossed or ticked (a column
+    # of crossed checkboxes stands like a word turned a quarter).
+    rings[own[(own > 0) & (clean | ~heavy)]] = True
     rings[0] = True
     for j in np.flatnonzero(like):
         lab = own[j]

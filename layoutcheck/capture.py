@@ -22,7 +22,8 @@ so every caller sees one pose from template to input.
 A page states no usable resolution when its file gives none, or one at which the image would be a
 sheet larger than :data:`~layoutcheck.sources.MAX_SHEET_IN` (phones write 72 dpi into a
 12-megapixel photo: a sheet of 55 inches). Such a page is given a working resolution
-(:func:`~layoutcheck.sources.working_dpi`) from the size of the sheet found on it; the scale is
+(:func:`~layoutcheck.sources.working_dpi`) from the size of the sheet found on it (a sheet whose
+sides' ratio names a paper size, A4, Letter or Legal, is taken as that size); the scale is
 measured from the form itself afterwards.
 """
 

@@ -442,8 +442,9 @@ def check_page(page: VectorPage | RasterPage | PageError, templates: Sequence[Te
 
 
 #: Scales considered for a photo whose sheet was found: its page is the sheet at a resolution
-#: that takes the sheet's long side as 11.35 in, so the form is at scale 1 within the spread of
-#: paper sizes (A5's 8.27 in to A3's 16.5 in long side: ISO 216; Letter 11 in: ANSI).
+#: that takes the sheet's long side as its paper size's (or 11.35 in), so the form is at scale 1
+#: within the spread of paper sizes (A5's 8.27 in to A3's 16.5 in long side: ISO 216; Letter
+#: 11 in: ANSI).
 SHEET_SCALE_RANGE = (0.7, 1.45)
 #: ... and only poses that put most of the form on the sheet (a turn by a quarter that would put
 #: a portrait form across a portrait sheet is not followed).

@@ -453,18 +453,42 @@ MAX_SHEET_IN = 20.0
 #: Letter (11 in, ANSI): off by at most 4 % for either, well inside what the vote's scale range
 #: and the extractor's sizes in mm allow.
 ASSUMED_LONG_SIDE_IN = 11.35
+#: Sheets a photographed page is told by the ratio of its sides: (long / short, long side in
+#: inches). ISO 216 A4 (210 x 297 mm; A3 and A5 share its ratio, and forms are A4: common
+#: practice), ANSI Letter (8.5 x 11 in) and Legal (8.5 x 14 in).
+SHEETS = ((297.0 / 210.0, 297.0 / 25.4), (11.0 / 8.5, 11.0), (14.0 / 8.5, 14.0))
+#: Largest difference of log ratios at which a found sheet is taken for one of :data:`SHEETS`: a
+#: photo's perspective changes the ratio of the sheet's mean sides by a few percent, and A4 and
+#: Letter lie 9 % apart.
+SHEET_RATIO_TOLERANCE = 0.035
+
+
+def sheet_long_side_in(sheet_px: np.ndarray) -> float:
+    """Long side of a sheet found in a photo, inches: that of the paper size its sides' ratio
+    names (:data:`SHEETS`), or :data:`ASSUMED_LONG_SIDE_IN` when it names none.
+
+    ``sheet_px`` are the sheet's four corners in order around it (pixels); the ratio is that of
+    the means of its opposite sides.
+    """
+    q = np.asarray(sheet_px, float)
+    sides = np.hypot(*(q - np.roll(q, -1, axis=0)).T)
+    a, b = (sides[0] + sides[2]) / 2.0, (sides[1] + sides[3]) / 2.0
+    ratio = max(a, b) / max(min(a, b), 1e-9)
+    off = [abs(np.log(ratio / r)) for r, _ in SHEETS]
+    k = int(np.argmin(off))
+    return float(SHEETS[k][1]) if off[k] <= SHEET_RATIO_TOLERANCE else ASSUMED_LONG_SIDE_IN
 
 
 def working_dpi(shape: tuple[int, int], sheet_px: np.ndarray | None = None) -> float:
-    """Resolution to work at for a page without a usable one: the sheet's long side (or the
-    image's) taken as :data:`ASSUMED_LONG_SIDE_IN`."""
+    """Resolution to work at for a page without a usable one: the long side of the sheet found
+    on it taken as its paper size's (:func:`sheet_long_side_in`), or the image's long side as
+    :data:`ASSUMED_LONG_SIDE_IN`."""
     if sheet_px is not None:
         q = np.asarray(sheet_px, float)
         sides = np.hypot(*(q - np.roll(q, -1, axis=0)).T)
         long_px = max(sides[0] + sides[2], sides[1] + sides[3]) / 2.0
-    else:
-        long_px = float(max(shape))
-    return float(long_px / ASSUMED_LONG_SIDE_IN)
+        return float(long_px / sheet_long_side_in(q))
+    return float(max(shape) / ASSUMED_LONG_SIDE_IN)
 
 
 def _exif_orientation(frame) -> int | None:

@@ -23,6 +23,7 @@ from layoutcheck.extract.raster import background_spread
 from layoutcheck.pose import Pose
 from layoutcheck.simulate_camera import CameraSettings, simulate_photo
 from layoutcheck.sources import read_pages
+from layoutcheck.template import load_template
 from layoutcheck.verdict import VERDICTS
 
 
@@ -124,6 +125,11 @@ def test_learn_from_a_photo_and_refuse_a_small_one(setup, tmp_path):
     good = simulate_photo(ref, CameraSettings(size=(3264, 2448), seed=24, fill=False, bend_mm=0.0))
     res = CliRunner().invoke(main, ["learn", good.save(tmp_path / "blank.jpg"), "-o", str(tmp_path / "p.json")])
     assert res.exit_code == 0, res.output
+    # The sheet's sides name A4, so the template is A4 long: 297 mm = 841.9 pt (ISO 216; 1 pt =
+    # 1/72 in), within what the sheet's outline in a photo allows (a long side of 11.35 in,
+    # assumed for a sheet of unknown size, would be 2.9 % short).
+    learned = load_template(tmp_path / "p.json").pages[0]
+    assert learned.height == pytest.approx(841.9, rel=0.01)
     other = simulate_photo(ref, CameraSettings(size=(2592, 1944), seed=25))
     res = CliRunner().invoke(main, ["verify", str(tmp_path / "p.json"), other.save(tmp_path / "o.jpg"), "--json", "-"])
     (rec,) = [json.loads(x) for x in res.stdout.splitlines() if x.strip()]

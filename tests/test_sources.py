@@ -33,8 +33,8 @@ def test_image_without_resolution_is_read_with_a_working_one(tmp_path):
     img = page_image()
     Image.fromarray(img).save(path)  # PNG without a pHYs chunk
     (photo,) = list(read_pages(path))
-    # No stated resolution: a camera capture, its long side taken as 11.35 in (between A4's
-    # 11.69 in, ISO 216, and Letter's 11 in, ANSI).
+    # No stated resolution and no sheet found yet: a camera capture, its long side taken as
+    # 11.35 in (between A4's 11.69 in, ISO 216, and Letter's 11 in, ANSI).
     assert isinstance(photo, RasterPage) and not photo.dpi_stated
     assert photo.dpi == pytest.approx(max(img.shape) / 11.35)
     (page,) = list(read_pages(path, ReadLimits(dpi=200)))
@@ -63,3 +63,24 @@ def test_multipage_tiff_frames_are_each_their_own(tmp_path):
     assert [p.page for p in pages] == [1, 2]
     assert np.array_equal(pages[0].image, a) and np.array_equal(pages[1].image, b)
     assert all(p.dpi == 300 for p in pages)
+
+
+@pytest.mark.parametrize("short_mm, long_mm, want_in", [
+    (210.0, 297.0, 297.0 / 25.4),  # A4, ISO 216
+    (148.0, 210.0, 297.0 / 25.4),  # A5, ISO 216: the A ratio; forms are taken for A4 (common practice)
+    (8.5 * 25.4, 11.0 * 25.4, 11.0),  # Letter, ANSI
+    (8.5 * 25.4, 14.0 * 25.4, 14.0),  # Legal, ANSI
+    (200.0, 200.0, 11.35),  # a square sheet names no paper size
+])
+def test_a_photographed_sheet_is_told_by_its_ratio(short_mm, long_mm, want_in):
+    from layoutcheck.sources import sheet_long_side_in, working_dpi
+
+    k = 7.5  # pixels per mm of the photo
+    quad = np.array([[100, 80], [100 + short_mm * k, 80], [100 + short_mm * k, 80 + long_mm * k], [100, 80 + long_mm * k]])
+    assert sheet_long_side_in(quad) == pytest.approx(want_in)
+    # Seen in perspective (the top edge 3 % shorter): still the same paper size.
+    keystone = quad + np.array([[0.015 * short_mm * k, 0], [-0.015 * short_mm * k, 0], [0, 0], [0, 0]])
+    assert sheet_long_side_in(keystone) == pytest.approx(want_in)
+    if want_in != 11.35:
+        # The working resolution makes the sheet its paper size: A4's 297 mm are 11.69 in.
+        assert working_dpi((4000, 3000), quad) == pytest.approx(long_mm * k / want_in)

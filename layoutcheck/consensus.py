@@ -549,7 +549,9 @@ def vote_pose(tmpl: FrameArrays, inp: FrameArrays, ti: np.ndarray, ii: np.ndarra
             if any(abs(_circ_diff(np.array([centre]), r)[0]) < 10.0 for r in rotations):
                 continue
             near = np.abs(_circ_diff(prot, centre)) <= 1.0 * settings.rotation_bin_deg
-            rotations.append(float(centre + np.median(_circ_diff(prot[near], centre))))
+            # A bin allowed only for its neighbours' votes (the turns next to it were not
+            # allowed) holds none of its own: its centre stands.
+            rotations.append(float(centre + (np.median(_circ_diff(prot[near], centre)) if near.any() else 0.0)))
     else:
         rotations = [r for r in (0.0, 90.0, 180.0, -90.0) if allow is None or allow(r)]
 

@@ -287,3 +287,22 @@ def test_partner_of_the_expected_size_wins_a_shared_centre(form, merged_first):
     assert r.status == "ok"
     assert inp[r.input_index] is not merged
     assert r.input_index == (k + 1 if merged_first else k)
+
+
+def test_a_turn_allowed_only_beside_the_votes_gives_a_finite_pose(form):
+    """The elements of a page turned 10.9 deg vote in the 1-deg bin next to -10 deg (the vote's
+    own sign; its boxes also in the bins a quarter turn away). Only turns between -10 and 60 deg
+    are allowed, so the one allowed bin beside the peak holds none of the votes itself: the vote
+    still gives finite poses, and without the limit it finds the turn."""
+    from layoutcheck.consensus import SolverSettings, gated_pairs, vote_pose
+
+    tmpl, _ = form
+    inp = mapped(tmpl, Pose.from_params(rotation_deg=10.9, scale=1.0, shift=(300.0, -200.0)))
+    ta, ia = FrameArrays.of(tmpl), FrameArrays.of(inp)
+    settings = SolverSettings()
+    ti, ii = gated_pairs(ta, ia, settings)
+    hyps = vote_pose(ta, ia, ti, ii, settings, allow=lambda rot: -10.0 < rot < 60.0)
+    assert all(np.isfinite(h.pose.matrix).all() for h in hyps)
+    # Pose.from_params is the reference for the turn planted.
+    best = vote_pose(ta, ia, ti, ii, settings)[0]
+    assert best.pose.rotation_deg == pytest.approx(10.9, abs=0.05)

@@ -101,23 +101,34 @@ def glyph_outlines(boxes: list[Element], sides: np.ndarray, ink: np.ndarray, dpi
     import cv2
 
     out = np.zeros(len(boxes), bool)
-    if not boxes or not ink.any():
-        return out
-    n, labels, stats, _ = cv2.connectedComponentsWithStats(ink.view(np.uint8), connectivity=8)
     k = dpi / POINTS_PER_INCH
-    bx, by, bw, bh, area = (stats[:, i].astype(float) for i in range(5))
     letter = settings.max_letter_mm * dpi / MM_PER_INCH
-    h_img, w_img = ink.shape
+    # A candidate larger than a letter is drawn by no letter; the pieces of ink are labelled only
+    # around the others (twice a letter's size about them: a neighbour stands within one height).
+    small = [j for j, e in enumerate(boxes) if max(e.size) * k <= letter]
+    if not small or not ink.any():
+        return out
+    corners = np.concatenate([outline(boxes[j]) * k for j in small])
+    h_full, w_full = ink.shape
+    c0 = np.maximum(np.floor(corners.min(0) - 2 * letter).astype(int), 0)
+    c1 = np.minimum(np.ceil(corners.max(0) + 2 * letter).astype(int), [w_full, h_full])
+    window = np.ascontiguousarray(ink[c0[1]:c1[1], c0[0]:c1[0]])
+    n, labels, stats, _ = cv2.connectedComponentsWithStats(window.view(np.uint8), connectivity=8)
+    stats = stats.copy()
+    stats[:, :2] += c0  # back to the page's pixels
+    bx, by, bw, bh, area = (stats[:, i].astype(float) for i in range(5))
+    h_img, w_img = labels.shape
     t = np.linspace(0.0, 1.0, 16)
     own = np.zeros(len(boxes), int)
     like = np.zeros(len(boxes), bool)
     clean = np.zeros(len(boxes), bool)
     heavy = np.zeros(len(boxes), bool)
-    for j, e in enumerate(boxes):
+    for j in small:
+        e = boxes[j]
         c = outline(e) * k
         pts = np.concatenate([c[i] + np.outer(t, c[(i + 1) % 4] - c[i]) for i in range(4)])
-        hit = labels[np.clip(np.floor(pts[:, 1]).astype(int), 0, h_img - 1),
-                     np.clip(np.floor(pts[:, 0]).astype(int), 0, w_img - 1)]
+        hit = labels[np.clip(np.floor(pts[:, 1]).astype(int) - c0[1], 0, h_img - 1),
+                     np.clip(np.floor(pts[:, 0]).astype(int) - c0[0], 0, w_img - 1)]
         hit = hit[hit > 0]
         if not len(hit):
             continue
@@ -133,7 +144,8 @@ def glyph_outlines(boxes: list[Element], sides: np.ndarray, ink: np.ndarray, dpi
         band = np.zeros((h, w), np.uint8)
         poly = np.round((c - [x0, y0]) * 16).astype(np.int32)
         cv2.polylines(band, [poly], True, 1, max(1, int(round(sides[j] * k)) + 3), cv2.LINE_8, shift=4)
-        off = np.count_nonzero((labels[y0:y0 + h, x0:x0 + w] == lab) & ~band.astype(bool))
+        wx, wy = x0 - c0[0], y0 - c0[1]
+        off = np.count_nonzero((labels[wy:wy + h, wx:wx + w] == lab) & ~band.astype(bool))
         like[j] = heavy[j] or off >= settings.letter_off_outline * area[lab]
         # A clean outline: hardly any ink off its sides (a third of the share above: noise, and
         # the rounding of corners).

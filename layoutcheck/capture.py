@@ -73,9 +73,14 @@ class Capture:
     sheet_px: np.ndarray | None = None
 
 
+#: Powers ``(of x, of y)`` of the monomials of a cubic in x and y, in the order of
+#: :func:`_poly_terms`' columns.
+CUBIC_POWERS = ((0, 0), (1, 0), (0, 1), (2, 0), (1, 1), (0, 2), (3, 0), (2, 1), (1, 2), (0, 3))
+
+
 def _poly_terms(x: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """Monomials of a cubic in x and y (10 columns)."""
-    return np.column_stack([np.ones_like(x), x, y, x * x, x * y, y * y, x**3, x * x * y, x * y * y, y**3])
+    """Monomials of a cubic in x and y (10 columns, :data:`CUBIC_POWERS`)."""
+    return np.column_stack([x**a * y**b for a, b in CUBIC_POWERS])
 
 
 def paper_mask(grey: np.ndarray) -> np.ndarray:
@@ -92,9 +97,8 @@ def paper_mask(grey: np.ndarray) -> np.ndarray:
     t, _ = cv2.threshold(closed, 0, 255, cv2.THRESH_BINARY | cv2.THRESH_OTSU)
     mask = closed > t
     xs, ys = np.arange(w) / w - 0.5, np.arange(h) / h - 0.5
-    # The cubic over the whole grid, summed term by term from the columns' and rows' powers (the
-    # design matrix is built only for the pixels fitted).
-    powers = [(0, 0), (1, 0), (0, 1), (2, 0), (1, 1), (0, 2), (3, 0), (2, 1), (1, 2), (0, 3)]
+    # The cubic over the whole grid is summed term by term from the columns' and rows' powers
+    # (the design matrix is built only for the pixels fitted).
     for _ in range(3):
         inner = cv2.erode(mask.view(np.uint8), np.ones((5, 5), np.uint8)).view(bool)
         sel = np.flatnonzero(inner.ravel())
@@ -105,7 +109,7 @@ def paper_mask(grey: np.ndarray) -> np.ndarray:
         # Normal equations: ten unknowns over coordinates within half a unit of 0 are well posed,
         # and far quicker than a decomposition of the tall matrix.
         coef = np.linalg.solve(design.T @ design, design.T @ lg.ravel()[sel].astype(float))
-        surface = sum(float(c) * np.outer(ys**b, xs**a) for c, (a, b) in zip(coef, powers))
+        surface = sum(float(c) * np.outer(ys**b, xs**a) for c, (a, b) in zip(coef, CUBIC_POWERS))
         mask = lg > surface + PAPER_LOG_MARGIN
     return mask
 

@@ -463,6 +463,13 @@ SHEETS = ((297.0 / 210.0, 297.0 / 25.4), (11.0 / 8.5, 11.0), (14.0 / 8.5, 14.0))
 SHEET_RATIO_TOLERANCE = 0.035
 
 
+def _mean_sides(sheet_px: np.ndarray) -> tuple[float, float]:
+    """Means of a quadrilateral's opposite sides (its corners in order around it), pixels."""
+    q = np.asarray(sheet_px, float)
+    sides = np.hypot(*(q - np.roll(q, -1, axis=0)).T)
+    return float(sides[0] + sides[2]) / 2.0, float(sides[1] + sides[3]) / 2.0
+
+
 def sheet_long_side_in(sheet_px: np.ndarray) -> float:
     """Long side of a sheet found in a photo, inches: that of the paper size its sides' ratio
     names (:data:`SHEETS`), or :data:`ASSUMED_LONG_SIDE_IN` when it names none.
@@ -470,9 +477,7 @@ def sheet_long_side_in(sheet_px: np.ndarray) -> float:
     ``sheet_px`` are the sheet's four corners in order around it (pixels); the ratio is that of
     the means of its opposite sides.
     """
-    q = np.asarray(sheet_px, float)
-    sides = np.hypot(*(q - np.roll(q, -1, axis=0)).T)
-    a, b = (sides[0] + sides[2]) / 2.0, (sides[1] + sides[3]) / 2.0
+    a, b = _mean_sides(sheet_px)
     ratio = max(a, b) / max(min(a, b), 1e-9)
     off = [abs(np.log(ratio / r)) for r, _ in SHEETS]
     k = int(np.argmin(off))
@@ -484,10 +489,7 @@ def working_dpi(shape: tuple[int, int], sheet_px: np.ndarray | None = None) -> f
     on it taken as its paper size's (:func:`sheet_long_side_in`), or the image's long side as
     :data:`ASSUMED_LONG_SIDE_IN`."""
     if sheet_px is not None:
-        q = np.asarray(sheet_px, float)
-        sides = np.hypot(*(q - np.roll(q, -1, axis=0)).T)
-        long_px = max(sides[0] + sides[2], sides[1] + sides[3]) / 2.0
-        return float(long_px / sheet_long_side_in(q))
+        return float(max(_mean_sides(sheet_px)) / sheet_long_side_in(sheet_px))
     return float(max(shape) / ASSUMED_LONG_SIDE_IN)
 
 

@@ -82,46 +82,36 @@ def fault_target(tp) -> tuple[str, object] | None:
 
 def planted(pdf: Path, kind: str, el, fault: str, out: Path) -> Path:
     """The one-page PDF with ``el`` moved (10 mm), removed or shrunk (70 %)."""
-    import io
-
-    from pypdf import PdfReader, PdfWriter
-    from reportlab.pdfgen import canvas
+    from scan_suite import overlay_pdf
 
     mm = 72 / 25.4
-    wtr = PdfWriter(clone_from=str(pdf))
-    page = wtr.pages[0]
-    w, h = float(page.mediabox.width), float(page.mediabox.height)
-    buf = io.BytesIO()
-    c = canvas.Canvas(buf, pagesize=(w, h), invariant=1)
-    x0, top, x1, bottom = el.frame
-    c.setStrokeColorRGB(1, 1, 1)
-    c.setFillColorRGB(1, 1, 1)
-    if kind == "box":
-        c.setLineWidth(4)
-        c.rect(x0, h - bottom, x1 - x0, bottom - top, stroke=1, fill=0)
-    else:
-        c.rect(x0 - 2, h - bottom - 2, x1 - x0 + 4, bottom - top + 4, stroke=0, fill=1)
-    c.setStrokeColorRGB(0, 0, 0)
-    c.setLineWidth(0.8)
-    cx, cy = (x0 + x1) / 2, (top + bottom) / 2
-    if fault == "moved":
+
+    def draw(c, w, h):
+        x0, top, x1, bottom = el.frame
+        c.setStrokeColorRGB(1, 1, 1)
+        c.setFillColorRGB(1, 1, 1)
         if kind == "box":
-            d = 10 * mm if x1 + 10 * mm <= w - 15 * mm else -10 * mm
-            c.rect(x0 + d, h - bottom, x1 - x0, bottom - top)
+            c.setLineWidth(4)
+            c.rect(x0, h - bottom, x1 - x0, bottom - top, stroke=1, fill=0)
         else:
-            c.line(x0, h - cy - 4.5 * mm, x1, h - cy - 4.5 * mm)  # 4.5 mm lower, clear of its caption
-    elif fault == "resized":
-        bw, bh = (x1 - x0) * 0.7, (bottom - top) * 0.7
-        if kind == "box":
-            c.rect(cx - bw / 2, h - cy - bh / 2, bw, bh)
-        else:
-            c.line(x0, h - cy, x0 + bw, h - cy)
-    c.showPage()
-    c.save()
-    page.merge_page(PdfReader(io.BytesIO(buf.getvalue())).pages[0])
-    with open(out, "wb") as fh:
-        wtr.write(fh)
-    return out
+            c.rect(x0 - 2, h - bottom - 2, x1 - x0 + 4, bottom - top + 4, stroke=0, fill=1)
+        c.setStrokeColorRGB(0, 0, 0)
+        c.setLineWidth(0.8)
+        cx, cy = (x0 + x1) / 2, (top + bottom) / 2
+        if fault == "moved":
+            if kind == "box":
+                d = 10 * mm if x1 + 10 * mm <= w - 15 * mm else -10 * mm
+                c.rect(x0 + d, h - bottom, x1 - x0, bottom - top)
+            else:
+                c.line(x0, h - cy - 4.5 * mm, x1, h - cy - 4.5 * mm)  # 4.5 mm lower, clear of its caption
+        elif fault == "resized":
+            bw, bh = (x1 - x0) * 0.7, (bottom - top) * 0.7
+            if kind == "box":
+                c.rect(cx - bw / 2, h - cy - bh / 2, bw, bh)
+            else:
+                c.line(x0, h - cy, x0 + bw, h - cy)
+
+    return overlay_pdf(pdf, out, draw)
 
 
 def make_suite(workdir: Path) -> list[dict]:

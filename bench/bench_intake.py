@@ -31,7 +31,6 @@ same cases for both sides, with accuracy of turn and scale.
 from __future__ import annotations
 
 import argparse
-import io
 import json
 import os
 import platform
@@ -47,7 +46,7 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
 sys.path.insert(0, str(HERE))
-from scan_suite import FORMS, MM, REFS, Case, make_cases, planted_pdf, scan  # noqa: E402
+from scan_suite import FORMS, MM, REFS, Case, make_cases, overlay_pdf, planted_pdf, scan  # noqa: E402
 
 RESULTS = HERE / "results"
 NUISANCES = ("fax 204x98", "fax 204x196", "faded print", "warp 1.5 mm", "bold headings", "rules into box sides",
@@ -88,24 +87,6 @@ def _free(ink: np.ndarray, x0: float, y0: float, x1: float, y1: float) -> bool:
     return not ink[b0:b1, a0:a1].any()
 
 
-def _overlay(src: Path, out: Path, draw) -> Path:
-    from pypdf import PdfReader, PdfWriter
-    from reportlab.pdfgen import canvas
-
-    wtr = PdfWriter(clone_from=str(src))
-    page = wtr.pages[0]
-    w, h = float(page.mediabox.width), float(page.mediabox.height)
-    buf = io.BytesIO()
-    c = canvas.Canvas(buf, pagesize=(w, h), invariant=1)
-    draw(c, h)
-    c.showPage()
-    c.save()
-    page.merge_page(PdfReader(io.BytesIO(buf.getvalue())).pages[0])
-    with open(out, "wb") as fh:
-        wtr.write(fh)
-    return out
-
-
 def bold_variant(src: Path, out: Path) -> Path:
     """The form with a bold heading in its largest free space (28 pt if it fits, down to 16)."""
     from reportlab.pdfbase.pdfmetrics import stringWidth
@@ -118,10 +99,10 @@ def bold_variant(src: Path, out: Path) -> Path:
         for y in range(15, ink.shape[0] - 15, 2):
             for x in range(15, ink.shape[1] - int(w_mm) - 15, 2):
                 if _free(ink, x, y, x + w_mm, y + h_mm):
-                    def draw(c, h, x=x, y=y, size=size):
+                    def draw(c, w, h, x=x, y=y, size=size):
                         c.setFont("Helvetica-Bold", size)
                         c.drawString(x * MM, h - (y + h_mm) * MM, text)
-                    return _overlay(src, out, draw)
+                    return overlay_pdf(src, out, draw)
     raise RuntimeError(f"{src}: no room for a heading")
 
 
@@ -153,11 +134,11 @@ def touch_variant(src: Path, out: Path) -> Path:
     if not rules:
         raise RuntimeError(f"{src}: no box with room for a rule")
 
-    def draw(c, h):
+    def draw(c, w, h):
         c.setLineWidth(0.8)
         for a0, b0, a1, b1 in rules:
             c.line(a0 * MM, h - b0 * MM, a1 * MM, h - b1 * MM)
-    return _overlay(src, out, draw)
+    return overlay_pdf(src, out, draw)
 
 
 # -- cases ----------------------------------------------------------------------------------------

@@ -95,48 +95,58 @@ def make_cases(templates: dict, n: int, seed: int = 7) -> list[Case]:
     return cases
 
 
+def overlay_pdf(src: Path, out: Path, draw, only_page: int | None = None) -> Path:
+    """``src`` with ``draw(canvas, width, height)`` painted over its first page (reportlab on a
+    page of the same size, merged by pypdf; points, origin bottom left), written to ``out``.
+    With ``only_page`` (1-based) the file keeps that page alone, and it is the one drawn on."""
+    from pypdf import PdfReader, PdfWriter
+    from reportlab.pdfgen import canvas
+
+    wtr = PdfWriter(clone_from=str(src))
+    if only_page is not None:
+        for k in reversed(range(len(wtr.pages))):
+            if k != only_page - 1:
+                wtr.remove_page(k)
+    page = wtr.pages[0]
+    w, h = float(page.mediabox.width), float(page.mediabox.height)
+    buf = io.BytesIO()
+    c = canvas.Canvas(buf, pagesize=(w, h), invariant=1)
+    draw(c, w, h)
+    c.showPage()
+    c.save()
+    page.merge_page(PdfReader(io.BytesIO(buf.getvalue())).pages[0])
+    with open(out, "wb") as fh:
+        wtr.write(fh)
+    return out
+
+
 def planted_pdf(case: Case, template, out_dir: Path) -> Path:
     """The reference page with the case's fault painted in (or the reference itself)."""
     src = REFS / case.form
     if case.fault is None:
         return src
-    from pypdf import PdfReader, PdfWriter
-    from reportlab.pdfgen import canvas
-
     tp = template.pages[case.page - 1]
     box = next(e for e in tp.elements if e.id == case.fault_box)
-    wtr = PdfWriter(clone_from=str(src))
-    for k in reversed(range(len(wtr.pages))):
-        if k != case.page - 1:
-            wtr.remove_page(k)
-    page = wtr.pages[0]
-    w, h = float(page.mediabox.width), float(page.mediabox.height)
-    buf = io.BytesIO()
-    c = canvas.Canvas(buf, pagesize=(w, h), invariant=1)
-    x0, top, x1, bottom = box.frame
-    c.setStrokeColorRGB(1, 1, 1)
-    c.setLineWidth(4)
-    c.rect(x0, h - bottom, x1 - x0, bottom - top, stroke=1, fill=0)
-    c.setStrokeColorRGB(0, 0, 0)
-    c.setLineWidth(0.8)
-    if case.fault == "moved":
-        # The moved box stays 15 mm inside the sheet, so the scan's shift and turn (up to 6 mm
-        # and 5 degrees) keep all of it on the image: a box cut by the image's edge is missing.
-        d = case.fault_mm * MM
-        dx = d if x1 + d <= w - 15 * MM else -d
-        c.rect(x0 + dx, h - bottom, x1 - x0, bottom - top)
-    elif case.fault == "resized":
-        cx, cy = (x0 + x1) / 2, (top + bottom) / 2
-        bw, bh = (x1 - x0) * 0.7, (bottom - top) * 0.7
-        c.rect(cx - bw / 2, h - cy - bh / 2, bw, bh)
-    c.showPage()
-    c.save()
-    overlay = PdfReader(io.BytesIO(buf.getvalue())).pages[0]
-    page.merge_page(overlay)
-    out = out_dir / f"case{case.index:03d}.pdf"
-    with open(out, "wb") as fh:
-        wtr.write(fh)
-    return out
+
+    def draw(c, w, h):
+        x0, top, x1, bottom = box.frame
+        c.setStrokeColorRGB(1, 1, 1)
+        c.setLineWidth(4)
+        c.rect(x0, h - bottom, x1 - x0, bottom - top, stroke=1, fill=0)
+        c.setStrokeColorRGB(0, 0, 0)
+        c.setLineWidth(0.8)
+        if case.fault == "moved":
+            # The moved box stays 15 mm inside the sheet, so the scan's shift and turn (up to 6
+            # mm and 5 degrees) keep all of it on the image: a box cut by the image's edge is missing.
+            d = case.fault_mm * MM
+            dx = d if x1 + d <= w - 15 * MM else -d
+            c.rect(x0 + dx, h - bottom, x1 - x0, bottom - top)
+        elif case.fault == "resized":
+            cx, cy = (x0 + x1) / 2, (top + bottom) / 2
+            bw, bh = (x1 - x0) * 0.7, (bottom - top) * 0.7
+            c.rect(cx - bw / 2, h - cy - bh / 2, bw, bh)
+
+    return overlay_pdf(src, out_dir / f"case{case.index:03d}.pdf", draw, only_page=case.page)
 
 
 def scan(case: Case, template, out_dir: Path):

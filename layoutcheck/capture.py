@@ -97,8 +97,8 @@ def paper_mask(grey: np.ndarray) -> np.ndarray:
     t, _ = cv2.threshold(closed, 0, 255, cv2.THRESH_BINARY | cv2.THRESH_OTSU)
     mask = closed > t
     xs, ys = np.arange(w) / w - 0.5, np.arange(h) / h - 0.5
-    # The cubic over the whole grid is summed term by term from the columns' and rows' powers
-    # (the design matrix is built only for the pixels fitted).
+    # The cubic over the whole grid is a product of the rows' and the columns' powers (the
+    # design matrix is built only for the pixels fitted).
     for _ in range(3):
         inner = cv2.erode(mask.view(np.uint8), np.ones((5, 5), np.uint8)).view(bool)
         sel = np.flatnonzero(inner.ravel())
@@ -109,7 +109,11 @@ def paper_mask(grey: np.ndarray) -> np.ndarray:
         # Normal equations: ten unknowns over coordinates within half a unit of 0 are well posed,
         # and far quicker than a decomposition of the tall matrix.
         coef = np.linalg.solve(design.T @ design, design.T @ lg.ravel()[sel].astype(float))
-        surface = sum(float(c) * np.outer(ys**b, xs**a) for c, (a, b) in zip(coef, CUBIC_POWERS))
+        # Over the grid, sum of coef * y**b * x**a: powers of y (rows) @ coefficients @ powers of x.
+        grid_coef = np.zeros((4, 4))
+        for c, (a, b) in zip(coef, CUBIC_POWERS):
+            grid_coef[b, a] = c
+        surface = (ys[:, None] ** np.arange(4)) @ grid_coef @ (xs[:, None] ** np.arange(4)).T
         mask = lg > surface + PAPER_LOG_MARGIN
     return mask
 
@@ -437,6 +441,20 @@ SEEK_PLACES = 10
 SEEK_SCALES = (0.5, 0.55, 0.6, 0.65, 0.7, 0.75, 0.8, 0.85, 1.2, 1.3, 1.4, 1.5)
 
 
+def resized_fit(grey: np.ndarray, dpi: float, element, pose: Pose) -> float | None:
+    """The size, as a ratio to its own, at which a box is printed about its own centre, or None.
+
+    Each scale of :data:`SEEK_SCALES` is probed (:func:`ink_probe`); sides are sought a little
+    across themselves, so neighbouring sizes fit too: the middle one of those that fit on the
+    same side of 1 is the box's.
+    """
+    fits = [sc for sc in SEEK_SCALES if ink_probe(grey, dpi, element, pose, scale=sc) == "present"]
+    if not fits:
+        return None
+    side = [sc for sc in fits if (sc < 1.0) == (fits[0] < 1.0)]
+    return float(np.median(side))
+
+
 def seek_box(grey: np.ndarray, dpi: float, element, pose: Pose, others, reach: float, tol: float):
     """Where a box the extractor did not find is printed, by its outline on the grey image.
 
@@ -449,12 +467,9 @@ def seek_box(grey: np.ndarray, dpi: float, element, pose: Pose, others, reach: f
 
     Returns ``("resized", ratio)``, ``("moved", (dx, dy) template points)`` or None.
     """
-    fits = [sc for sc in SEEK_SCALES if ink_probe(grey, dpi, element, pose, scale=sc) == "present"]
-    if fits:
-        # Sides are sought a little across themselves: neighbouring sizes fit too; the middle one
-        # of those tried on the same side of 1 is the box's.
-        side = [sc for sc in fits if (sc < 1.0) == (fits[0] < 1.0)]
-        return "resized", float(np.median(side))
+    ratio = resized_fit(grey, dpi, element, pose)
+    if ratio is not None:
+        return "resized", ratio
     k = dpi / POINTS_PER_INCH
     from .elements import outline
 

@@ -52,6 +52,10 @@ class SolverSettings:
 
     #: Scales considered at all (a page printed at half or double size is still recognised).
     scale_range: tuple[float, float] = (0.5, 2.0)
+    #: Size of a found element over its expected size under the page pose for the two to pair
+    #: (an element shrunk or grown still pairs with its place, and is found resized); None: the
+    #: scale range.
+    pair_range: tuple[float, float] | None = None
     rotation_bin_deg: float = 1.0
     log_scale_bin: float = 0.02
     #: Shift grid cell, 3 mm: about the spread of single-element predictions.
@@ -479,14 +483,15 @@ def spatial_pairs(pred: np.ndarray, tmpl: FrameArrays, inp: FrameArrays, radius:
                   free: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Compatible pairs whose input element lies within ``radius`` of the predicted place.
 
-    Same kind class, size within the scale range of the expected size, and equal text where
+    Same kind class, size within the pair range (by default the scale range) of the expected
+    size, and equal text where
     both sides have text; found with k-d trees, so the cost grows with the elements, not with
     their product. ``only`` limits the template elements asked about, ``free`` (a mask) the
     input elements that may answer.
     """
     from scipy.spatial import cKDTree
 
-    lo, hi = settings.scale_range
+    lo, hi = settings.pair_range or settings.scale_range
     out_t, out_i = [], []
     lt, li = _log_sizes(tmpl), _log_sizes(inp)
     t_ok = np.ones(len(tmpl.classes), bool) if only is None else np.isin(np.arange(len(tmpl.classes)), only)
@@ -897,7 +902,8 @@ def size_ratios(tmpl: FrameArrays, inp: FrameArrays, t: np.ndarray, i: np.ndarra
 
 def solve(template_elements, input_elements, sections=(), *, judged=None,
           settings: SolverSettings = SolverSettings(), position_tol: float = 5.67, size_tol: float = 0.10,
-          slack: dict | None = None, page_size: tuple[float, float] | None = None, unseen=None) -> Match:
+          slack: dict | None = None, page_size: tuple[float, float] | None = None, unseen=None,
+          near: Pose | None = None) -> Match:
     """Match one input page to one template page.
 
     Parameters
@@ -919,6 +925,10 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     unseen : (N,) bool array, optional
         Template elements the input cannot be relied on to show (drawn too thin for its
         resolution): a second vote for the pose is held without them.
+    near : Pose, optional
+        A pose known to within a few millimetres (a photo read a second time through its first
+        pose, see :func:`layoutcheck.check.read_again`): the refinement starts from it, with no
+        vote and no region growing.
 
     Returns
     -------
@@ -957,8 +967,11 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
         hyps = _strong(hyps)
         return ([_most_assigned(hyps, voters, inp, settings)] if len(hyps) > 1 else hyps), ti
 
-    hyps, ti = hypotheses(tmpl)
-    if unseen is not None and np.any(unseen):
+    if near is not None:
+        hyps, ti = [Hypothesis(near, 0)], np.zeros(0, int)
+    else:
+        hyps, ti = hypotheses(tmpl)
+    if near is None and unseen is not None and np.any(unseen):
         # Also a vote of the elements the input can show: where most of the others are lost,
         # they would set the scale the pairs are gated by, and chance pairs outvote the few found.
         # Where they are there after all, the first vote is the better; the refined score decides.
@@ -966,7 +979,7 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
     weights = np.array([settings.weights.get(e.kind, 0.3) for e in tmpl_els])
     best = None
     for h in hyps:
-        starts = [h.pose, grow(h, tmpl, inp, weights, settings)] if settings.grow else [h.pose]
+        starts = [h.pose, grow(h, tmpl, inp, weights, settings)] if settings.grow and near is None else [h.pose]
         for start in starts:
             pose, assignment, agree = refine(start, tmpl, inp, None, None, weights, settings)
             score = float(agree[judged].sum()) + 0.01 * float(agree.sum())
@@ -985,32 +998,48 @@ def solve(template_elements, input_elements, sections=(), *, judged=None,
                 sec_of[index[eid]] = s_i
 
     # Sections vote for their own residual shift under the page pose.
+    def vote_sections(pose: Pose):
+        inv = pose.inverse()
+        sec_shift = np.zeros((len(sections), 2))
+        sec_moved = np.zeros(len(sections), bool)
+        sec_support = np.zeros(len(sections))
+        # Pairs near where the page pose puts each element, as far as a section may have moved.
+        big_enough = [s_i for s_i in range(len(sections))
+                      if ((sec_of == s_i) & judged).sum() >= settings.section_min_elements]
+        if big_enough:
+            sti, sii = spatial_pairs(pose.apply(tmpl.centers), tmpl, inp, settings.section_reach, pose.scale, settings)
+        else:
+            sti = sii = np.zeros(0, int)
+        if len(sti):
+            resid = inv.apply(inp.centers[sii]) - tmpl.centers[sti]
+            for s_i, s in enumerate(sections):
+                members = np.flatnonzero((sec_of == s_i) & judged)
+                if len(members) < settings.section_min_elements:
+                    continue
+                sel = np.isin(sti, members)
+                if not sel.any():
+                    continue
+                off, count, zero_count = _section_vote(resid[sel], sti[sel], settings)
+                sec_support[s_i] = count / len(members)
+                if (np.hypot(*off) > position_tol and count >= max(settings.section_min_elements, 0.6 * len(members))
+                        and count > zero_count):
+                    sec_shift[s_i] = off
+                    sec_moved[s_i] = True
+        return sec_shift, sec_moved, sec_support
+
+    sec_shift, sec_moved, sec_support = vote_sections(pose)
+    members_n = np.array([int(((sec_of == s_i) & judged).sum()) for s_i in range(len(sections))])
+    lead = _page_offset(sec_shift, sec_moved, members_n, int(judged.sum()), position_tol)
+    if lead is not None:
+        # Sections vote for the page: most of the form moved as one means the page pose is off
+        # by that much (a table of even rows paired a row out), not that the sections moved.
+        # The pose shifted by their offset is kept when it explains at least as many elements.
+        again = refine(Pose.from_params(shift=(float(lead[0]), float(lead[1]))).compose(pose), tmpl, inp, None, None,
+                       weights, settings)
+        if again[2][judged].sum() >= agree[judged].sum():
+            pose, assignment, agree = again
+            sec_shift, sec_moved, sec_support = vote_sections(pose)
     inv = pose.inverse()
-    sec_shift = np.zeros((len(sections), 2))
-    sec_moved = np.zeros(len(sections), bool)
-    sec_support = np.zeros(len(sections))
-    # Pairs near where the page pose puts each element, as far as a section may have moved.
-    big_enough = [s_i for s_i in range(len(sections))
-                  if ((sec_of == s_i) & judged).sum() >= settings.section_min_elements]
-    if big_enough:
-        sti, sii = spatial_pairs(pose.apply(tmpl.centers), tmpl, inp, settings.section_reach, pose.scale, settings)
-    else:
-        sti = sii = np.zeros(0, int)
-    if len(sti):
-        resid = inv.apply(inp.centers[sii]) - tmpl.centers[sti]
-        for s_i, s in enumerate(sections):
-            members = np.flatnonzero((sec_of == s_i) & judged)
-            if len(members) < settings.section_min_elements:
-                continue
-            sel = np.isin(sti, members)
-            if not sel.any():
-                continue
-            off, count, zero_count = _section_vote(resid[sel], sti[sel], settings)
-            sec_support[s_i] = count / len(members)
-            if (np.hypot(*off) > position_tol and count >= max(settings.section_min_elements, 0.6 * len(members))
-                    and count > zero_count):
-                sec_shift[s_i] = off
-                sec_moved[s_i] = True
     if sec_moved.any():
         # Sections vote for the page: refit on the elements of sections that agree with it.
         usable = ~np.isin(sec_of, np.flatnonzero(sec_moved))
@@ -1238,6 +1267,32 @@ def _on_page(elements, shift: np.ndarray, pose: Pose, page_size: tuple[float, fl
     w, h = page_size
     inside = (mapped[..., 0] >= margin) & (mapped[..., 0] <= w - margin) & (mapped[..., 1] >= margin) & (mapped[..., 1] <= h - margin)
     return inside.all(axis=1)
+
+
+def _page_offset(shift: np.ndarray, moved: np.ndarray, members: np.ndarray, judged: int, tol: float) -> np.ndarray | None:
+    """The offset, template points, of the moved sections that hold most of a page's judged
+    elements and agree on it (within ``tol``), or None when no such group holds more than half.
+
+    Parameters
+    ----------
+    shift : (S, 2) array
+        Each section's residual shift under the page pose.
+    moved : (S,) bool array
+        Sections found moved.
+    members : (S,) int array
+        Judged elements per section.
+    judged : int
+        Judged elements of the page (in sections or not).
+    tol : float
+        Points two sections' shifts may differ by and be one group.
+    """
+    best = None
+    for s_i in np.flatnonzero(moved):
+        group = moved & (np.hypot(*(shift - shift[s_i]).T) <= tol)
+        held = int(members[group].sum())
+        if held * 2 > judged and (best is None or held > best[0]):
+            best = (held, np.average(shift[group], axis=0, weights=members[group]))
+    return None if best is None else best[1]
 
 
 def _section_vote(resid: np.ndarray, owners: np.ndarray, settings: SolverSettings):

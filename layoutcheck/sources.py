@@ -514,6 +514,42 @@ def _is_password_error(exc: BaseException) -> bool:
     return False
 
 
+#: Most references followed from one indirect object before it is taken as damaged.
+MOST_REFERENCES = 64
+
+
+def _guard_self_references() -> None:
+    """Make pdfminer refuse an indirect object whose value is a chain of references back to
+    itself (``2 0 obj 2 0 R endobj``, or 2 naming 3 naming 2): its ``resolve1`` follows such a
+    chain forever, and a damaged cross-reference table can make one out of any file. Each
+    object is resolved as it is read (the value it would resolve to anyway) and a chain that
+    comes back, or runs past :data:`MOST_REFERENCES`, raises pdfminer's ``PDFSyntaxError``,
+    which the reader reports as a damaged file or page. Installed once, on the class (pdfplumber
+    makes the document inside ``pdfplumber.open``, where the catalog is resolved first)."""
+    from pdfminer.pdfdocument import PDFDocument
+    from pdfminer.pdfparser import PDFSyntaxError
+    from pdfminer.pdftypes import PDFObjRef
+
+    plain = PDFDocument.getobj
+    if getattr(plain, "guards_self_references", False):
+        return
+
+    def getobj(self, objid):
+        obj = plain(self, objid)
+        seen = [objid]
+        while isinstance(obj, PDFObjRef):
+            if obj.objid in seen or len(seen) >= MOST_REFERENCES:
+                chain = " -> ".join(str(o) for o in [*seen, obj.objid][:6])
+                raise PDFSyntaxError(f"object {objid} is a chain of references back to itself ({chain})")
+            seen.append(obj.objid)
+            obj = plain(self, obj.objid)
+        return obj
+
+    getobj.guards_self_references = True
+    getobj.__doc__ = plain.__doc__
+    PDFDocument.getobj = getobj
+
+
 class _PdfDocument(Document):
     def __init__(self, source: str, plan: list, pdf, limits: ReadLimits, data: bytes | None = None):
         super().__init__(source, plan)
@@ -532,6 +568,7 @@ class _PdfDocument(Document):
 
         # The file is opened here and closed by us on every path: pdfplumber closes a file it
         # opened itself only for some of the errors a damaged file can raise.
+        _guard_self_references()
         fh = io.BytesIO(data) if data is not None else open(source, "rb")
         try:
             pdf = pdfplumber.open(fh, password=limits.password or "")

@@ -120,6 +120,33 @@ def page_tree_loop(path: Path) -> Path:
     return raw_pdf(path, objs)
 
 
+def self_reference(path: Path) -> Path:
+    """A page tree whose Pages object is a reference to itself (``2 0 obj 2 0 R``): a damaged
+    cross-reference table makes one out of any file (found by the fuzz test)."""
+    objs = [b"<< /Type /Catalog /Pages 2 0 R >>", b"2 0 R",
+            b"<< /Type /Page /Parent 2 0 R /MediaBox [0 0 595 842] >>"]
+    return raw_pdf(path, objs)
+
+
+def reference_cycle(path: Path) -> Path:
+    """A catalog whose Pages is object 2, whose value is object 3, whose value is object 2."""
+    objs = [b"<< /Type /Catalog /Pages 2 0 R >>", b"3 0 R", b"2 0 R"]
+    return raw_pdf(path, objs)
+
+
+def root_self_reference(path: Path) -> Path:
+    """A trailer whose Root is an object that is a reference to itself."""
+    return raw_pdf(path, [b"1 0 R"])
+
+
+def resources_self_reference(path: Path) -> Path:
+    """A drawn page whose Resources is an object that is a reference to itself."""
+    objs = [b"<< /Type /Catalog /Pages 2 0 R >>", b"<< /Type /Pages /Kids [3 0 R] /Count 1 >>",
+            b"<< /Type /Page /Parent 2 0 R /MediaBox [0 0 %d %d] /Contents 4 0 R /Resources 5 0 R >>" % A4_PT,
+            stream(b"", b"0.8 w 40 700 m 550 700 l S 40 600 200 40 re S"), b"5 0 R"]
+    return raw_pdf(path, objs)
+
+
 def xref_loop(path: Path) -> Path:
     """A cross-reference table whose /Prev points at itself."""
     objs = [b"<< /Type /Catalog /Pages 2 0 R >>", b"<< /Type /Pages /Kids [3 0 R] /Count 1 >>",

@@ -9,6 +9,7 @@ the files written, ISO 216 (A4 210 x 297 mm) and the 1/72 in point (ISO 32000-1)
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import cv2
 import numpy as np
@@ -25,6 +26,8 @@ from layoutcheck.simulate_camera import CameraSettings, simulate_photo
 from layoutcheck.sources import read_pages
 from layoutcheck.template import load_template
 from layoutcheck.verdict import VERDICTS
+
+SAMPLES = Path(__file__).resolve().parent.parent / "sample_forms" / "references"
 
 
 @pytest.fixture(scope="module")
@@ -203,3 +206,60 @@ def test_a_form_with_too_oblique_a_view_is_to_be_taken_again():
     assert verdict == "retake"
     assert r.stretch > 2.0
     assert "too obliquely" in findings[0].message and "bottom" in findings[0].message
+
+
+@pytest.mark.slow
+def test_a_plain_fault_settles_on_the_first_reading_as_a_second_would(tmp_path, monkeypatch):
+    import layoutcheck.check as check
+    from layoutcheck.check import CheckSettings, check_file, learn
+
+    ref = SAMPLES / "KBH-101_vessel_arrival.pdf"
+    template = learn([str(ref)])
+    photo = simulate_photo(ref, CameraSettings(size=(2592, 1944), seed=23, tamper="moved"))
+    path = str(photo.save(tmp_path / "moved.jpg"))
+    calls = []
+    real = check.read_again
+    monkeypatch.setattr(check, "read_again", lambda *a, **k: calls.append(1) or real(*a, **k))
+    (first,) = check_file(path, [template], CheckSettings())
+    assert calls == []  # one box moved, found elsewhere: not read again
+    monkeypatch.setattr(check, "settled", lambda *a, **k: False)
+    (second,) = check_file(path, [template], CheckSettings())
+    assert calls == [1]
+    # Both name the box the simulator moved, by the offset it planted.
+    for rec in (first, second):
+        (off,) = rec["offending"]
+        assert off["status"] == "moved"
+        assert np.abs(np.array(off["frame"]) - np.array(photo.tamper.frame)).max() < 3.0
+        assert np.abs(np.array(off["offset_mm"]) - photo.tamper.offset_mm).max() < 0.5
+    # Both poses put the template page's corners where the simulator's truth does, within 2 px.
+    for rec in (first, second):
+        assert photo.corner_error_px(photo_px_pose(rec, path)).max() < 2.0
+
+
+@pytest.mark.slow
+def test_the_second_look_on_a_second_reading_matches_at_its_scales(setup, monkeypatch):
+    import layoutcheck.check as check
+
+    d, _, moved, _ = setup
+    path = simulate_photo(moved, CameraSettings(size=(2592, 1944), seed=22, bend_mm=0.4)).save(d / "moved3.jpg")
+    monkeypatch.setattr(check, "settled", lambda *a, **k: False)
+    seen = []
+    real_again, real_look = check.read_again, check.look_again
+
+    def again(page, capture, found, tp, match, settings):
+        out = real_again(page, capture, found, tp, match, settings)
+        seen.append(("second", out[0] is not capture))
+        return out
+
+    def look(page, found, tp, match, settings):
+        seen.append(("look", settings.solver.scale_range))
+        return real_look(page, found, tp, match, settings)
+
+    monkeypatch.setattr(check, "read_again", again)
+    monkeypatch.setattr(check, "look_again", look)
+    # In this process (the CLI checks in a worker process, out of the monkeypatch's reach).
+    (rec,) = check.check_file(str(path), [load_template(d / "t.json")], check.CheckSettings())
+    # The second reading was kept, and the second look matched on its page at the scales the
+    # second reading matched at (a box shrunk by 30 % pairs there, not at the sheet's scales).
+    assert seen == [("second", True), ("look", check.SECOND_READING_SCALES)]
+    assert [(o["caption"], o["status"]) for o in rec["offending"]] == [("Tonnage", "moved")]

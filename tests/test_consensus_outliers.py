@@ -306,3 +306,29 @@ def test_a_turn_allowed_only_beside_the_votes_gives_a_finite_pose(form):
     # Pose.from_params is the reference for the turn planted.
     best = vote_pose(ta, ia, ti, ii, settings)[0]
     assert best.pose.rotation_deg == pytest.approx(10.9, abs=0.05)
+
+
+def test_a_pose_known_nearly_is_refined_without_a_vote(form):
+    # A second reading sees the page through a first pose: the form lies within a few
+    # millimetres of its place. Refined from the identity (no vote), the pose is the planted one,
+    # checked against scikit-image's least-squares similarity on the exact centres (outside
+    # reference), and a box moved 10 mm is still named.
+    from skimage.transform import SimilarityTransform
+
+    els, _ = form
+    small = Pose.from_params(rotation_deg=0.3, scale=1.004, shift=(2.5, -1.5), center=(297.0, 420.0))
+    boxes = [k for k, e in enumerate(els) if e.kind == "box" and e.frame[1] < DECL_TOP]
+    k = boxes[len(boxes) // 2]
+    d = points(10.0)
+    x0, top, x1, bottom = els[k].frame
+    moved = list(els)
+    moved[k] = els[k].replace(frame=(x0 + d, top, x1 + d, bottom))
+    seen = mapped(moved, small)
+    m = solve(els, seen, near=Pose.identity())
+    assert m.hypotheses == 1 and m.pairs == 0  # no vote was held
+    src = np.array([e.center for j, e in enumerate(els) if j != k])
+    dst = np.array([e.center for j, e in enumerate(seen) if j != k])
+    ref = SimilarityTransform.from_estimate(src, dst)  # scikit-image 0.26 API
+    assert np.abs(m.pose.matrix - ref.params).max() < 1e-6
+    assert [r.id for r in m.elements if r.status != "ok"] == [els[k].id]
+    assert by_id(m)[els[k].id].offset_mm == pytest.approx((10.0, 0.0), abs=0.01)

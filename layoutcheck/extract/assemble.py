@@ -102,20 +102,26 @@ def _merge_axis(pos: np.ndarray, lo: np.ndarray, hi: np.ndarray, width: np.ndarr
     # Group by position across the rule: a new group where the gap to the previous exceeds tol.
     tol = np.maximum(st.same_line, width)
     breaks = np.flatnonzero(np.diff(pos) > tol[1:]) + 1
+    mid = (lo + hi) / 2
     out = []
     for grp in np.split(np.arange(len(pos)), breaks):
-        o = grp[np.argsort(lo[grp], kind="stable")]
-        cur = [o[0]]
-        end = hi[o[0]]
-        for k in o[1:]:
-            if lo[k] <= end + st.join_gap:
-                cur.append(k)
-                end = max(end, hi[k])
+        # Within a group, along the rule: a piece continues the row it meets end to end and lies
+        # on (within tol across, carried along the row's last piece's slope). A group chains by
+        # position alone, so on a bent or turned page two parallel rules a few points apart can
+        # fall in one group through pieces elsewhere on the page; they stay two rows.
+        rows: list[list] = []  # [pieces, end, last piece]
+        for k in grp[np.argsort(lo[grp], kind="stable")]:
+            for row in rows:
+                last = row[2]
+                across = pos[k] - (pos[last] + slope[last] * (mid[k] - mid[last]))
+                if lo[k] <= row[1] + st.join_gap and abs(across) <= max(tol[k], tol[last]):
+                    row[0].append(k)
+                    if hi[k] >= row[1]:
+                        row[1], row[2] = hi[k], k
+                    break
             else:
-                out.append(_merged_row(pos, lo, hi, width, slope, cur))
-                cur = [k]
-                end = hi[k]
-        out.append(_merged_row(pos, lo, hi, width, slope, cur))
+                rows.append([[k], hi[k], k])
+        out.extend(_merged_row(pos, lo, hi, width, slope, row[0]) for row in rows)
     return np.array(out, dtype=float)
 
 

@@ -484,9 +484,8 @@ def spatial_pairs(pred: np.ndarray, tmpl: FrameArrays, inp: FrameArrays, radius:
     """Compatible pairs whose input element lies within ``radius`` of the predicted place.
 
     Same kind class, size within the pair range (by default the scale range) of the expected
-    size, and equal text where
-    both sides have text; found with k-d trees, so the cost grows with the elements, not with
-    their product. ``only`` limits the template elements asked about, ``free`` (a mask) the
+    size, and equal text where both sides have text; found with k-d trees, so the cost grows
+    with the elements, not with their product. ``only`` limits the template elements asked about, ``free`` (a mask) the
     input elements that may answer.
     """
     from scipy.spatial import cKDTree

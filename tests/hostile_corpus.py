@@ -7,9 +7,11 @@ the fault it plants. ``CORPUS`` lists every kind with its maker.
 
 from __future__ import annotations
 
+import contextlib
 import io
 import os
 import shutil
+import signal
 import struct
 import zlib
 from pathlib import Path
@@ -19,6 +21,26 @@ import numpy as np
 SAMPLES = Path(__file__).resolve().parents[1] / "sample_forms"
 EXACT = SAMPLES / "inputs" / "101_exact.pdf"
 A4_PT = (595, 842)  # ISO 216 A4, 210 x 297 mm, in points of 1/72 in (rounded)
+
+
+class Hung(BaseException):
+    """Raised by :func:`at_most`: not an ``Exception``, so no reader turns it into an error record."""
+
+
+@contextlib.contextmanager
+def at_most(seconds: int, what: str = "reading"):
+    """Fail a read that does not end within ``seconds``: a reader caught in a loop would hang the
+    suite, and the batch's page time limit is not there to stop it in the test's process."""
+    def hung(*_):
+        raise Hung(f"{what} did not end within {seconds} s")
+
+    old = signal.signal(signal.SIGALRM, hung)
+    signal.alarm(seconds)
+    try:
+        yield
+    finally:
+        signal.alarm(0)
+        signal.signal(signal.SIGALRM, old)
 
 
 # -- PDF bytes ------------------------------------------------------------------------------------

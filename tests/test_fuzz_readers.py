@@ -8,10 +8,8 @@ parser is fuzzed too, not only the file structure.
 
 from __future__ import annotations
 
-import contextlib
 import io
 import os
-import signal
 import tempfile
 
 import numpy as np
@@ -88,30 +86,10 @@ def test_two_thousand_mutations_per_reader(reader, tmp_path):
     @RUNS
     @given(data=st.data())
     def run(data):
-        with _at_most(20):
+        with H.at_most(20):
             read_once(_write(path, mutate(SEEDS[reader], data.draw)))
 
     run()
-
-
-class Hung(BaseException):
-    """Raised by :func:`_at_most`: not an ``Exception``, so no reader turns it into an error record."""
-
-
-@contextlib.contextmanager
-def _at_most(seconds: int):
-    """Fail a read that does not end within ``seconds`` (a reader caught in a loop would hang the
-    suite; the batch's page time limit is not there to stop it in this process)."""
-    def hung(*_):
-        raise Hung(f"reading did not end within {seconds} s")
-
-    old = signal.signal(signal.SIGALRM, hung)
-    signal.alarm(seconds)
-    try:
-        yield
-    finally:
-        signal.alarm(0)
-        signal.signal(signal.SIGALRM, old)
 
 
 def _write(path: str, data: bytes) -> str:

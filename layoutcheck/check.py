@@ -714,8 +714,8 @@ def second_reading(index, ident, page, capture, found, settings):
     """:func:`read_again` for the chosen template page. A page that agrees with none well enough
     (its first reading may have missed the rules that tell the forms apart) is read again for
     each of the three template pages tried that it agreed with best; the best agreeing is kept.
-    A page whose first reading finds every element in place under a perspective is not read
-    again. Returns ``(identification, capture, found, match)``, the identification's best being
+    A page whose first reading finds every element in place, or settles it (:func:`settled`), is
+    not read again. Returns ``(identification, capture, found, match)``, the identification's best being
     the template page kept, with the second reading's match."""
     from dataclasses import replace
 
